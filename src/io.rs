@@ -1,0 +1,601 @@
+//! Reading tables and writing outputs: the only stage besides `report` that touches files.
+//!
+//! In: CSV bytes with a header row. Out: a [`Table`] holding the ids and the raw (trimmed)
+//! values of the columns the config needs. Every error names the file, the line and the column.
+//! Outputs go through [`OutputSet`], which writes temporary files and renames them into place
+//! only when all of them are complete, so a failed run leaves no partial outputs.
+
+use crate::error::{Error, Result};
+use std::collections::HashMap;
+use std::fs::File;
+use std::io::{BufWriter, Read, Write};
+use std::path::{Path, PathBuf};
+
+/// Largest accepted value of one cell, in bytes; bigger cells are an error, not a slowdown.
+pub const MAX_CELL_BYTES: usize = 65_536;
+
+/// One input table: ids in row order and the needed columns' trimmed values.
+#[derive(Debug, Clone)]
+pub struct Table {
+    /// The file the table was read from (as given), for messages.
+    pub path: PathBuf,
+    /// Record ids in row order.
+    pub ids: Vec<String>,
+    /// The needed columns, by name, each with one trimmed value per row ("" = missing).
+    pub columns: HashMap<String, Vec<String>>,
+    /// The 1-based line on which each row starts, for messages.
+    pub lines: Vec<u64>,
+}
+
+impl Table {
+    /// Number of records.
+    pub fn len(&self) -> usize {
+        self.ids.len()
+    }
+
+    /// True when the table has no records.
+    pub fn is_empty(&self) -> bool {
+        self.ids.is_empty()
+    }
+
+    /// The values of a needed column.
+    pub fn column(&self, name: &str) -> &[String] {
+        self.columns.get(name).map(Vec::as_slice).unwrap_or(&[])
+    }
+}
+
+/// Text encodings accepted for input tables.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Encoding {
+    /// UTF-8 (a byte-order mark is skipped).
+    Utf8,
+    /// ISO-8859-1: each byte is the code point of the same number.
+    Latin1,
+    /// Windows-1252: Latin-1 with printable characters in 0x80..=0x9F.
+    Windows1252,
+}
+
+impl Encoding {
+    /// From the config spelling; `None` for an unknown name.
+    pub fn parse(name: Option<&str>) -> Option<Encoding> {
+        match name.map(|s| s.to_ascii_lowercase()) {
+            None => Some(Encoding::Utf8),
+            Some(s) => match s.as_str() {
+                "utf-8" | "utf8" => Some(Encoding::Utf8),
+                "latin1" | "latin-1" | "iso-8859-1" => Some(Encoding::Latin1),
+                "windows-1252" | "cp1252" => Some(Encoding::Windows1252),
+                _ => None,
+            },
+        }
+    }
+}
+
+// Windows-1252 0x80..=0x9F (the WHATWG encoding index); the five undefined bytes map to the
+// C1 controls of the same number, as WHATWG does.
+const CP1252_HIGH: [char; 32] = [
+    '\u{20AC}', '\u{0081}', '\u{201A}', '\u{0192}', '\u{201E}', '\u{2026}', '\u{2020}', '\u{2021}',
+    '\u{02C6}', '\u{2030}', '\u{0160}', '\u{2039}', '\u{0152}', '\u{008D}', '\u{017D}', '\u{008F}',
+    '\u{0090}', '\u{2018}', '\u{2019}', '\u{201C}', '\u{201D}', '\u{2022}', '\u{2013}', '\u{2014}',
+    '\u{02DC}', '\u{2122}', '\u{0161}', '\u{203A}', '\u{0153}', '\u{009D}', '\u{017E}', '\u{0178}',
+];
+
+fn transcode(bytes: &[u8], enc: Encoding) -> Vec<u8> {
+    let text: String = bytes
+        .iter()
+        .map(|&b| match enc {
+            Encoding::Windows1252 if (0x80..=0x9F).contains(&b) => CP1252_HIGH[(b - 0x80) as usize],
+            _ => b as char,
+        })
+        .collect();
+    text.into_bytes()
+}
+
+/// What to read from a table: the id column, the other needed columns, encoding, delimiter.
+#[derive(Debug, Clone)]
+pub struct ReadSpec {
+    /// The id column.
+    pub id: String,
+    /// The compared columns needed besides the id.
+    pub columns: Vec<String>,
+    /// The text encoding.
+    pub encoding: Encoding,
+    /// The delimiter byte.
+    pub delimiter: u8,
+}
+
+/// Reads a table from a file; see [`read_table_from`].
+pub fn read_table(path: &Path, spec: &ReadSpec) -> Result<Table> {
+    let mut file =
+        File::open(path).map_err(|e| Error::input(format!("cannot open: {e}")).with_file(path))?;
+    let mut bytes = Vec::new();
+    file.read_to_end(&mut bytes)
+        .map_err(|e| Error::input(format!("cannot read: {e}")).with_file(path))?;
+    read_table_from(&bytes, path, spec)
+}
+
+/// Reads a table from CSV bytes; `label` names the source in errors.
+///
+/// The header row is required; the id column must exist, and every id must be non-empty and
+/// unique. Values are trimmed; an empty value means missing. Rows with a different number of
+/// cells than the header are an error.
+pub fn read_table_from(bytes: &[u8], label: &Path, spec: &ReadSpec) -> Result<Table> {
+    let at = |e: Error| e.with_file(label);
+    let owned;
+    let mut data: &[u8] = match spec.encoding {
+        Encoding::Utf8 => bytes,
+        enc => {
+            owned = transcode(bytes, enc);
+            &owned
+        }
+    };
+    if let Some(rest) = data.strip_prefix(b"\xEF\xBB\xBF") {
+        data = rest;
+    }
+    if data.iter().all(|b| b.is_ascii_whitespace()) {
+        return Err(at(Error::input(
+            "the file is empty: a header row naming the columns is needed",
+        )));
+    }
+    let mut rdr = csv::ReaderBuilder::new()
+        .has_headers(true)
+        .flexible(true)
+        .delimiter(spec.delimiter)
+        .from_reader(data);
+    let header = rdr.byte_headers().map_err(|e| at(csv_error(e)))?.clone();
+    let mut names = Vec::with_capacity(header.len());
+    for (i, h) in header.iter().enumerate() {
+        let name = std::str::from_utf8(h).map_err(|_| at(not_utf8(1, &format!("#{}", i + 1))))?;
+        names.push(name.trim().to_string());
+    }
+    let find = |col: &str| -> Result<usize> {
+        names.iter().position(|n| n == col).ok_or_else(|| {
+            let present: Vec<&str> = names.iter().map(String::as_str).collect();
+            let hint = crate::config::nearest(col, &present)
+                .map(|n| format!("; closest is `{n}`"))
+                .unwrap_or_default();
+            at(Error::input(format!(
+                "column `{col}` not found in the header (columns: {}){hint}",
+                present.join(", ")
+            ))
+            .with_line(1))
+        })
+    };
+    let id_at = find(&spec.id)?;
+    let mut wanted: Vec<(String, usize)> = Vec::new();
+    for c in &spec.columns {
+        if !wanted.iter().any(|(n, _)| n == c) {
+            wanted.push((c.clone(), find(c)?));
+        }
+    }
+    let mut ids = Vec::new();
+    let mut lines = Vec::new();
+    let mut cols: Vec<Vec<String>> = vec![Vec::new(); wanted.len()];
+    let mut seen: HashMap<String, u64> = HashMap::new();
+    let mut record = csv::ByteRecord::new();
+    let mut lines_at = LineCounter::default();
+    loop {
+        match rdr.read_byte_record(&mut record) {
+            Ok(true) => {}
+            Ok(false) => break,
+            Err(e) => return Err(at(csv_error(e))),
+        }
+        let line = lines_at.line(data, record.position());
+        if record.len() == 1 && record.get(0).is_some_and(|c| c.is_empty()) && names.len() > 1 {
+            continue; // a blank line
+        }
+        if record.len() != names.len() {
+            return Err(at(Error::input(format!(
+                "row has {} cells but the header has {}",
+                record.len(),
+                names.len()
+            ))
+            .with_line(line)));
+        }
+        let cell = |i: usize, col: &str| -> Result<String> {
+            let raw = record.get(i).unwrap_or(b"");
+            if raw.len() > MAX_CELL_BYTES {
+                return Err(at(Error::input(format!(
+                    "value is {} bytes long, over the limit of {MAX_CELL_BYTES}",
+                    raw.len()
+                ))
+                .with_line(line)
+                .with_column(col)));
+            }
+            let s = std::str::from_utf8(raw).map_err(|_| at(not_utf8(line, col)))?;
+            Ok(s.trim().to_string())
+        };
+        let id = cell(id_at, &spec.id)?;
+        if id.is_empty() {
+            return Err(at(Error::input("empty id")
+                .with_line(line)
+                .with_column(&spec.id)));
+        }
+        if let Some(first) = seen.get(&id) {
+            return Err(at(Error::input(format!(
+                "duplicate id (first seen on line {first})"
+            ))
+            .with_line(line)
+            .with_column(&spec.id)));
+        }
+        for (k, (name, i)) in wanted.iter().enumerate() {
+            cols[k].push(cell(*i, name)?);
+        }
+        seen.insert(id.clone(), line);
+        ids.push(id);
+        lines.push(line);
+    }
+    if ids.is_empty() {
+        return Err(at(Error::input("the table has a header but no records")));
+    }
+    let columns = wanted.into_iter().map(|(n, _)| n).zip(cols).collect();
+    Ok(Table {
+        path: label.to_path_buf(),
+        ids,
+        columns,
+        lines,
+    })
+}
+
+/// Line numbers of records from their byte offsets, counted incrementally. The csv crate's
+/// own line count is one short after a CRLF header, so we count newlines ourselves.
+#[derive(Default)]
+struct LineCounter {
+    offset: usize,
+    line: u64,
+}
+
+impl LineCounter {
+    fn line(&mut self, data: &[u8], pos: Option<&csv::Position>) -> u64 {
+        let Some(pos) = pos else {
+            return 0;
+        };
+        let mut start = pos.byte() as usize;
+        while start < data.len() && (data[start] == b'\r' || data[start] == b'\n') {
+            start += 1;
+        }
+        let start = start.min(data.len());
+        if start >= self.offset {
+            self.line += data[self.offset..start]
+                .iter()
+                .filter(|&&b| b == b'\n')
+                .count() as u64;
+            self.offset = start;
+        }
+        self.line + 1
+    }
+}
+
+fn not_utf8(line: u64, col: &str) -> Error {
+    Error::input(
+        "text is not valid UTF-8; if the file is in another encoding, set `encoding = \"latin1\"` or `\"windows-1252\"` for this table",
+    )
+    .with_line(line)
+    .with_column(col)
+}
+
+fn csv_error(e: csv::Error) -> Error {
+    let line = e.position().map(|p| p.line());
+    let msg = match e.kind() {
+        csv::ErrorKind::Io(io) => format!("cannot read: {io}"),
+        csv::ErrorKind::Utf8 { .. } => "text is not valid UTF-8".to_string(),
+        _ => format!("malformed CSV: {e}"),
+    };
+    let err = Error::input(msg);
+    match line {
+        Some(l) => err.with_line(l),
+        None => err,
+    }
+}
+
+/// Scored pairs for `dovetail match`: ids interned in first-seen order.
+#[derive(Debug, Clone, Default)]
+pub struct ScoredPairs {
+    /// Distinct left ids, in first-seen order.
+    pub left_ids: Vec<String>,
+    /// Distinct right ids, in first-seen order.
+    pub right_ids: Vec<String>,
+    /// Per pair: index into `left_ids`.
+    pub left: Vec<u32>,
+    /// Per pair: index into `right_ids`.
+    pub right: Vec<u32>,
+    /// Per pair: the weight.
+    pub weight: Vec<f64>,
+}
+
+/// Reads a CSV of scored pairs with columns `left_id,right_id,weight` (others ignored).
+pub fn read_scored_pairs(path: &Path) -> Result<ScoredPairs> {
+    let bytes = std::fs::read(path)
+        .map_err(|e| Error::input(format!("cannot read: {e}")).with_file(path))?;
+    read_scored_pairs_from(&bytes, path)
+}
+
+/// Reads scored pairs from CSV bytes; `label` names the source in errors.
+pub fn read_scored_pairs_from(bytes: &[u8], label: &Path) -> Result<ScoredPairs> {
+    let at = |e: Error| e.with_file(label);
+    let data = bytes.strip_prefix(b"\xEF\xBB\xBF").unwrap_or(bytes);
+    if data.iter().all(|b| b.is_ascii_whitespace()) {
+        return Err(at(Error::input(
+            "the file is empty: a header `left_id,right_id,weight` is needed",
+        )));
+    }
+    let mut rdr = csv::ReaderBuilder::new().flexible(true).from_reader(data);
+    let header = rdr.byte_headers().map_err(|e| at(csv_error(e)))?.clone();
+    let names: Vec<String> = header
+        .iter()
+        .map(|h| String::from_utf8_lossy(h).trim().to_string())
+        .collect();
+    let col = |want: &str| -> Result<usize> {
+        names.iter().position(|n| n == want).ok_or_else(|| {
+            let present: Vec<&str> = names.iter().map(String::as_str).collect();
+            at(Error::input(format!(
+                "column `{want}` not found in the header (columns: {}); the header must name left_id, right_id and weight",
+                present.join(", ")
+            ))
+            .with_line(1))
+        })
+    };
+    let (li, ri, wi) = (col("left_id")?, col("right_id")?, col("weight")?);
+    let mut out = ScoredPairs::default();
+    let mut lmap: HashMap<String, u32> = HashMap::new();
+    let mut rmap: HashMap<String, u32> = HashMap::new();
+    let mut seen: HashMap<(u32, u32), u64> = HashMap::new();
+    let mut record = csv::ByteRecord::new();
+    let mut lines_at = LineCounter::default();
+    loop {
+        match rdr.read_byte_record(&mut record) {
+            Ok(true) => {}
+            Ok(false) => break,
+            Err(e) => return Err(at(csv_error(e))),
+        }
+        let line = lines_at.line(data, record.position());
+        if record.len() != names.len() {
+            return Err(at(Error::input(format!(
+                "row has {} cells but the header has {}",
+                record.len(),
+                names.len()
+            ))
+            .with_line(line)));
+        }
+        let text = |i: usize, c: &str| -> Result<String> {
+            let raw = record.get(i).unwrap_or(b"");
+            let s = std::str::from_utf8(raw).map_err(|_| at(not_utf8(line, c)))?;
+            Ok(s.trim().to_string())
+        };
+        let (l, r, w) = (
+            text(li, "left_id")?,
+            text(ri, "right_id")?,
+            text(wi, "weight")?,
+        );
+        for (v, c) in [(&l, "left_id"), (&r, "right_id")] {
+            if v.is_empty() {
+                return Err(at(Error::input("empty id").with_line(line).with_column(c)));
+            }
+        }
+        let weight: f64 = w.parse().map_err(|_| {
+            at(Error::input(format!("`{w}` is not a number"))
+                .with_line(line)
+                .with_column("weight"))
+        })?;
+        if !weight.is_finite() {
+            return Err(at(Error::input(format!("weight `{w}` is not finite"))
+                .with_line(line)
+                .with_column("weight")));
+        }
+        let intern = |map: &mut HashMap<String, u32>, ids: &mut Vec<String>, v: String| -> u32 {
+            let next = ids.len() as u32;
+            *map.entry(v.clone()).or_insert_with(|| {
+                ids.push(v);
+                next
+            })
+        };
+        let a = intern(&mut lmap, &mut out.left_ids, l);
+        let b = intern(&mut rmap, &mut out.right_ids, r);
+        if let Some(first) = seen.insert((a, b), line) {
+            return Err(at(Error::input(format!(
+                "duplicate pair (first given on line {first})"
+            ))
+            .with_line(line)));
+        }
+        out.left.push(a);
+        out.right.push(b);
+        out.weight.push(weight);
+    }
+    Ok(out)
+}
+
+/// A set of output files written to temporary names and renamed into place together.
+///
+/// Dropping an `OutputSet` without [`OutputSet::commit`] removes every temporary file, so a
+/// failure midway leaves no partial outputs.
+#[derive(Debug)]
+pub struct OutputSet {
+    dir: PathBuf,
+    pending: Vec<(PathBuf, PathBuf)>,
+}
+
+impl OutputSet {
+    /// Starts a set of outputs in `dir`, creating it if needed.
+    pub fn new(dir: &Path) -> Result<OutputSet> {
+        std::fs::create_dir_all(dir).map_err(|e| {
+            Error::output(format!("cannot create output folder: {e}")).with_file(dir)
+        })?;
+        Ok(OutputSet {
+            dir: dir.to_path_buf(),
+            pending: Vec::new(),
+        })
+    }
+
+    /// The output folder.
+    pub fn dir(&self) -> &Path {
+        &self.dir
+    }
+
+    /// Writes one file's full content through `fill`, into a temporary file for now.
+    pub fn write<F>(&mut self, name: &str, fill: F) -> Result<()>
+    where
+        F: FnOnce(&mut dyn Write) -> std::io::Result<()>,
+    {
+        let target = self.dir.join(name);
+        let tmp = self.dir.join(format!(".{name}.tmp-{}", std::process::id()));
+        let fail = |e: std::io::Error, path: &Path| {
+            let _ = std::fs::remove_file(path);
+            Error::output(format!(
+                "cannot write ({e}); no output files were left in place"
+            ))
+            .with_file(&target)
+        };
+        let file = File::create(&tmp).map_err(|e| fail(e, &tmp))?;
+        let mut w = BufWriter::new(file);
+        fill(&mut w).map_err(|e| fail(e, &tmp))?;
+        let file = w.into_inner().map_err(|e| fail(e.into_error(), &tmp))?;
+        file.sync_all().map_err(|e| fail(e, &tmp))?;
+        self.pending.push((tmp, target));
+        Ok(())
+    }
+
+    /// Renames every temporary file into place.
+    pub fn commit(mut self) -> Result<Vec<PathBuf>> {
+        let pending = std::mem::take(&mut self.pending);
+        let mut done = Vec::new();
+        for (tmp, target) in &pending {
+            std::fs::rename(tmp, target).map_err(|e| {
+                Error::output(format!("cannot move output into place: {e}")).with_file(target)
+            })?;
+            done.push(target.clone());
+        }
+        Ok(done)
+    }
+}
+
+impl Drop for OutputSet {
+    fn drop(&mut self) {
+        for (tmp, _) in &self.pending {
+            let _ = std::fs::remove_file(tmp);
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn spec(cols: &[&str]) -> ReadSpec {
+        ReadSpec {
+            id: "id".into(),
+            columns: cols.iter().map(|s| s.to_string()).collect(),
+            encoding: Encoding::Utf8,
+            delimiter: b',',
+        }
+    }
+
+    fn read(text: &[u8], cols: &[&str]) -> Result<Table> {
+        read_table_from(text, Path::new("t.csv"), &spec(cols))
+    }
+
+    fn err(text: &[u8], cols: &[&str]) -> String {
+        read(text, cols)
+            .err()
+            .map(|e| e.to_string())
+            .unwrap_or_default()
+    }
+
+    #[test]
+    fn reads_bom_crlf_and_quoted_newlines() {
+        let t = read(
+            b"\xEF\xBB\xBFid,name\r\n1, Ann \r\n2,\"Bo\nB\"\r\n",
+            &["name"],
+        )
+        .unwrap();
+        assert_eq!(t.ids, vec!["1", "2"]);
+        assert_eq!(t.column("name"), &["Ann".to_string(), "Bo\nB".to_string()]);
+        assert_eq!(t.lines, vec![2, 3]);
+    }
+
+    #[test]
+    fn errors_name_line_and_column() {
+        assert_eq!(
+            err(b"id,name\n1,a\n1,b\n", &["name"]),
+            "t.csv: line 3: column id: duplicate id (first seen on line 2)"
+        );
+        assert_eq!(
+            err(b"id,name\n,a\n", &["name"]),
+            "t.csv: line 2: column id: empty id"
+        );
+        assert_eq!(
+            err(b"id,name\n1,a,x\n", &["name"]),
+            "t.csv: line 2: row has 3 cells but the header has 2"
+        );
+        let e = err(b"id,surname\n1,a\n", &["surnme"]);
+        assert!(
+            e.contains("column `surnme` not found") && e.contains("closest is `surname`"),
+            "{e}"
+        );
+        assert!(err(b"", &[]).contains("empty"));
+        assert!(err(b"id,name\n", &["name"]).contains("no records"));
+        let e = err(b"id,name\n1,caf\xE9\n", &["name"]);
+        assert!(
+            e.starts_with("t.csv: line 2: column name: text is not valid UTF-8"),
+            "{e}"
+        );
+        assert!(e.contains("latin1"));
+    }
+
+    #[test]
+    fn latin1_and_cp1252() {
+        // 0xE9 is é in ISO-8859-1; 0x80 is the euro sign in Windows-1252 (WHATWG index).
+        let mut s = spec(&["name"]);
+        s.encoding = Encoding::Latin1;
+        let t = read_table_from(b"id,name\n1,caf\xE9\n", Path::new("t"), &s).unwrap();
+        assert_eq!(t.column("name")[0], "café");
+        s.encoding = Encoding::Windows1252;
+        let t = read_table_from(b"id,name\n1,\x80 5\n", Path::new("t"), &s).unwrap();
+        assert_eq!(t.column("name")[0], "€ 5");
+    }
+
+    #[test]
+    fn scored_pairs_errors() {
+        let e = |t: &[u8]| {
+            read_scored_pairs_from(t, Path::new("p.csv"))
+                .err()
+                .map(|e| e.to_string())
+                .unwrap_or_default()
+        };
+        assert_eq!(
+            e(b"left_id,right_id,weight\na,b,1\na,b,2\n"),
+            "p.csv: line 3: duplicate pair (first given on line 2)"
+        );
+        assert_eq!(
+            e(b"left_id,right_id,weight\na,b,x\n"),
+            "p.csv: line 2: column weight: `x` is not a number"
+        );
+        assert_eq!(
+            e(b"left_id,right_id,weight\na,b,NaN\n"),
+            "p.csv: line 2: column weight: weight `NaN` is not finite"
+        );
+        assert!(e(b"left,right,weight\n").contains("column `left_id` not found"));
+        let p = read_scored_pairs_from(
+            b"left_id,right_id,weight,note\nx,y,1.5,hi\nz,y,2,\n",
+            Path::new("p"),
+        )
+        .unwrap();
+        assert_eq!(p.left_ids, vec!["x", "z"]);
+        assert_eq!(p.right, vec![0, 0]);
+        assert_eq!(p.weight, vec![1.5, 2.0]);
+    }
+
+    #[test]
+    fn output_set_leaves_nothing_on_failure() {
+        let dir = tempfile::tempdir().unwrap();
+        {
+            let mut out = OutputSet::new(dir.path()).unwrap();
+            out.write("a.csv", |w| w.write_all(b"x")).unwrap();
+            let failed = out.write("b.csv", |_| Err(std::io::Error::other("disk full")));
+            assert!(failed.is_err());
+        }
+        assert_eq!(std::fs::read_dir(dir.path()).unwrap().count(), 0);
+        let mut out = OutputSet::new(dir.path()).unwrap();
+        out.write("a.csv", |w| w.write_all(b"x")).unwrap();
+        out.commit().unwrap();
+        assert_eq!(std::fs::read(dir.path().join("a.csv")).unwrap(), b"x");
+    }
+}

@@ -1,0 +1,26 @@
+//! dovetail: one-to-one probabilistic record linkage of two tables of people, with a
+//! feasibility check before any link is trusted and a confidence for every link.
+//!
+//! The stages, in data-flow order (see DEVELOPERS.md):
+//! [`io`] reads tables → [`records`] cleans and interns values → [`block`] builds candidate
+//! pairs → [`compare`] gives agreement patterns → [`model`] fits m, u and p by EM →
+//! [`matching`] finds the optimum one-to-one linkage → [`reliability`] assesses feasibility and
+//! scores confidence → [`report`] writes outputs. [`pipeline`] runs them in order; the binary
+//! only parses arguments and prints.
+
+pub mod block;
+pub mod compare;
+pub mod config;
+pub mod error;
+pub mod io;
+pub mod matching;
+pub mod model;
+pub mod pipeline;
+pub mod records;
+pub mod reliability;
+pub mod report;
+pub mod rng;
+pub mod synth;
+pub mod text;
+
+pub use error::{Error, ErrorKind, Result};

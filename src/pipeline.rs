@@ -1,0 +1,533 @@
+//! The stages in order: read, block, compare, fit, assess, match, score confidence, decide.
+//!
+//! This module holds no math of its own: it passes each stage's output to the next and
+//! collects warnings and timings. Subcommands call [`prepare`] and then [`link`] or only
+//! [`assess_only`].
+
+use crate::block::{self, Candidates, Pass, PassStats};
+use crate::compare::{self, Comparison, PatternCounts, MISSING_LEVEL};
+use crate::config::{Config, Method};
+use crate::error::{Error, Result};
+use crate::io::{self, Encoding, ReadSpec, Table};
+use crate::matching::{self, Matching};
+use crate::model::{self, EmOptions, Fit, ValueFrequency};
+use crate::records::{self, Records, MISSING};
+use crate::reliability::confidence::{self, BpOptions, Marginals};
+use crate::reliability::forecast::{self, ForecastOptions};
+use crate::reliability::separation::{self, FieldSeparation};
+use crate::reliability::{self, AssessInput, Assessment, VerdictRule};
+use std::collections::HashMap;
+use std::time::Instant;
+
+/// Receives stage names as they start (for progress lines); the core never prints.
+pub trait Progress: Sync {
+    /// A stage starts.
+    fn stage(&self, name: &str);
+}
+
+/// A progress sink that says nothing.
+pub struct Silent;
+
+impl Progress for Silent {
+    fn stage(&self, _name: &str) {}
+}
+
+/// Everything computed before matching.
+pub struct Prepared {
+    /// The config.
+    pub config: Config,
+    /// The left table as read.
+    pub left: Table,
+    /// The right table as read.
+    pub right: Table,
+    /// Cleaned, interned values.
+    pub records: Records,
+    /// Per-pass statistics.
+    pub pass_stats: Vec<PassStats>,
+    /// Candidate pairs.
+    pub cands: Candidates,
+    /// Pattern code per pair.
+    pub comparison: Comparison,
+    /// Pattern counts.
+    pub counts: PatternCounts,
+    /// The fitted laws.
+    pub fit: Fit,
+    /// Value-frequency tables of fields with `frequency = true`.
+    pub frequency: Vec<Option<ValueFrequency>>,
+    /// Per pair: the Fellegi–Sunter weight (sum of log-likelihood ratios).
+    pub weight: Vec<f64>,
+    /// Per pair: weight plus the log prior odds (the log posterior odds).
+    pub theta: Vec<f64>,
+    /// Per-field separation.
+    pub separations: Vec<FieldSeparation>,
+    /// Warnings for the user, in plain words (counts only, never record values).
+    pub warnings: Vec<String>,
+    /// Seconds per stage.
+    pub timings: Vec<(String, f64)>,
+}
+
+/// The result of a full run.
+pub struct Linkage {
+    /// The optimum one-to-one matching on theta.
+    pub matching: Matching,
+    /// Per-pair confidence under the one-to-one constraint.
+    pub confidence: Marginals,
+    /// The feasibility assessment.
+    pub assessment: Assessment,
+    /// Pair indices written as links (chosen and at or above the cut-off), ascending.
+    pub links: Vec<usize>,
+    /// The confidence cut-off in force.
+    pub cutoff: f64,
+}
+
+struct Clock {
+    start: Instant,
+}
+
+impl Clock {
+    fn new() -> Clock {
+        Clock {
+            start: Instant::now(),
+        }
+    }
+    fn lap(&mut self, name: &str, timings: &mut Vec<(String, f64)>) {
+        timings.push((name.to_string(), self.start.elapsed().as_secs_f64()));
+        self.start = Instant::now();
+    }
+}
+
+fn read_side(cfg: &Config, left: bool) -> Result<Table> {
+    let spec = if left { &cfg.left } else { &cfg.right };
+    let key = if left { "left" } else { "right" };
+    let encoding = Encoding::parse(spec.encoding.as_deref()).ok_or_else(|| {
+        Error::config(format!(
+            "`{key}.encoding`: unknown encoding `{}`; use utf-8, latin1 or windows-1252",
+            spec.encoding.as_deref().unwrap_or("")
+        ))
+    })?;
+    let delimiter = match spec.delimiter.as_deref() {
+        None => b',',
+        Some(d) if d.len() == 1 => d.as_bytes()[0],
+        Some("\\t") | Some("tab") => b'\t',
+        Some(d) => {
+            return Err(Error::config(format!(
+                "`{key}.delimiter`: `{d}` is not one character"
+            )))
+        }
+    };
+    let columns = cfg
+        .field
+        .iter()
+        .map(|f| {
+            if left {
+                f.left_column()
+            } else {
+                f.right_column()
+            }
+            .to_string()
+        })
+        .collect();
+    let read = ReadSpec {
+        id: spec.id.clone(),
+        columns,
+        encoding,
+        delimiter,
+    };
+    io::read_table(&cfg.resolve(&spec.path), &read)
+}
+
+/// Reads, blocks, compares and fits.
+pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
+    let mut timings = Vec::new();
+    let mut warnings = Vec::new();
+    let mut clock = Clock::new();
+    progress.stage("reading");
+    let left = read_side(&config, true)?;
+    let right = read_side(&config, false)?;
+    let records = records::build(&left, &right, &config.field)?;
+    for fv in &records.fields {
+        if fv.left_missing_rate() == 1.0 || fv.right_missing_rate() == 1.0 {
+            warnings.push(format!(
+                "field `{}` is empty in every row of one table; it carries no evidence",
+                fv.spec.name
+            ));
+        }
+    }
+    clock.lap("reading", &mut timings);
+
+    progress.stage("blocking");
+    let specs = config.passes()?;
+    if specs.len() > block::MAX_PASSES {
+        return Err(Error::config(format!(
+            "{} blocking passes given; at most {} are supported",
+            specs.len(),
+            block::MAX_PASSES
+        )));
+    }
+    let passes: Vec<Pass> = specs
+        .into_iter()
+        .zip(&config.block)
+        .enumerate()
+        .map(|(i, (parts, b))| Pass {
+            name: b.name.clone().unwrap_or_else(|| format!("pass {}", i + 1)),
+            parts,
+            max_block_pairs: b.max_block_pairs.unwrap_or(block::DEFAULT_MAX_BLOCK_PAIRS),
+        })
+        .collect();
+    let (cands, pass_stats) = block::candidates(&records, &passes);
+    for s in &pass_stats {
+        for (key, size) in &s.skipped {
+            warnings.push(format!(
+                "{}: block with key `{key}` would give {size} pairs, over the cap of {}; it was skipped (set `max_block_pairs` or add a key part to split it)",
+                s.name,
+                passes.iter().find(|p| p.name == s.name).map_or(0, |p| p.max_block_pairs)
+            ));
+        }
+    }
+    if cands.is_empty() {
+        warnings.push("no candidate pairs: no pass gave any two records the same key; every record stays unlinked".into());
+    }
+    clock.lap("blocking", &mut timings);
+
+    progress.stage("comparing");
+    let comparison = compare::compare(&records, &cands);
+    let counts = comparison.pattern_counts();
+    clock.lap("comparing", &mut timings);
+
+    progress.stage("fitting");
+    let fit = if cands.is_empty() {
+        model::null_fit(&counts.levels)
+    } else {
+        let p_hint = records.n_left().min(records.n_right()) as f64 / cands.len() as f64;
+        let f = model::fit(
+            &counts,
+            &EmOptions {
+                max_iterations: config.model.max_iterations,
+                tolerance: config.model.tolerance,
+                p_hint,
+            },
+        );
+        if !f.converged {
+            warnings.push(format!(
+                "EM stopped at the cap of {} iterations before converging; fields: {}",
+                config.model.max_iterations,
+                config
+                    .field
+                    .iter()
+                    .map(|f| f.name.as_str())
+                    .collect::<Vec<_>>()
+                    .join(", ")
+            ));
+        }
+        f
+    };
+    let frequency: Vec<Option<ValueFrequency>> = records
+        .fields
+        .iter()
+        .map(|fv| {
+            fv.spec
+                .frequency
+                .then(|| model::value_frequency(&fv.left_counts, &fv.right_counts))
+        })
+        .collect();
+    let (mut weight, mut theta) = pair_weights(&records, &cands, &comparison, &fit, &frequency);
+    let mut fit = fit;
+    if !cands.is_empty() {
+        for _ in 0..ONE_TO_ONE_ROUNDS {
+            let marg = confidence::marginals(
+                records.n_left(),
+                &cands.left,
+                &cands.right,
+                &theta,
+                &BpOptions::default(),
+            );
+            let gamma = pattern_shares(&comparison, &counts, &marg.p);
+            fit = model::fit_from_shares(&counts, &gamma, &fit);
+            (weight, theta) = pair_weights(&records, &cands, &comparison, &fit, &frequency);
+        }
+    }
+    let names: Vec<String> = config.field.iter().map(|f| f.name.clone()).collect();
+    let split: Vec<Option<f64>> = frequency
+        .iter()
+        .enumerate()
+        .map(|(k, vf)| {
+            vf.as_ref().map(|vf| {
+                separation::split_bhattacharyya(
+                    &fit.m[k],
+                    &fit.u[k],
+                    fit.m_missing[k],
+                    fit.u_missing[k],
+                    &vf.m_shares,
+                    &vf.u_shares,
+                )
+            })
+        })
+        .collect();
+    let separations = separation::field_separations(&fit, &names, &split);
+    if !cands.is_empty() {
+        for s in &separations {
+            if s.adds_nothing {
+                warnings.push(format!(
+                    "field `{}` adds nothing: its m- and u-probabilities are nearly equal (B = {:.4})",
+                    s.name, s.bhattacharyya
+                ));
+            }
+        }
+    }
+    clock.lap("fitting", &mut timings);
+    Ok(Prepared {
+        config,
+        left,
+        right,
+        records,
+        pass_stats,
+        cands,
+        comparison,
+        counts,
+        fit,
+        frequency,
+        weight,
+        theta,
+        separations,
+        warnings,
+        timings,
+    })
+}
+
+/// Rounds of the one-to-one refinement of the fit (see [`model::fit_from_shares`]).
+pub const ONE_TO_ONE_ROUNDS: usize = 5;
+
+/// Mean link probability of the pairs of each pattern, in the order of `counts`.
+fn pattern_shares(comparison: &Comparison, counts: &PatternCounts, p: &[f64]) -> Vec<f64> {
+    let mut sum: HashMap<u64, f64> = HashMap::new();
+    for (i, &code) in comparison.codes.iter().enumerate() {
+        *sum.entry(code).or_default() += p[i];
+    }
+    counts
+        .patterns
+        .iter()
+        .zip(&counts.counts)
+        .map(|(pat, &n)| sum.get(&comparison.encode(pat)).copied().unwrap_or(0.0) / n)
+        .collect()
+}
+
+/// Per pair: the weight (sum of per-field log-likelihood ratios, value-frequency adjusted) and
+/// theta = weight + ln(p / (1 - p)).
+fn pair_weights(
+    records: &Records,
+    cands: &Candidates,
+    comparison: &Comparison,
+    fit: &Fit,
+    frequency: &[Option<ValueFrequency>],
+) -> (Vec<f64>, Vec<f64>) {
+    use rayon::prelude::*;
+    let mut by_code: HashMap<u64, f64> = HashMap::new();
+    for &code in &comparison.codes {
+        by_code
+            .entry(code)
+            .or_insert_with(|| fit.pattern_weight(&comparison.levels_of(code)));
+    }
+    let c = if fit.p > 0.0 && fit.p < 1.0 {
+        fit.prior_log_odds()
+    } else {
+        0.0
+    };
+    let weight: Vec<f64> = (0..cands.len())
+        .into_par_iter()
+        .map(|i| {
+            let code = comparison.codes[i];
+            let mut w = by_code[&code];
+            for (k, vf) in frequency.iter().enumerate() {
+                if let Some(vf) = vf {
+                    if comparison.level(code, k) == 0 {
+                        let v = records.fields[k].left[cands.left[i] as usize];
+                        if v != MISSING {
+                            w += vf.adjustment[v as usize];
+                        }
+                    }
+                }
+            }
+            w
+        })
+        .collect();
+    let theta = weight.iter().map(|w| w + c).collect();
+    (weight, theta)
+}
+
+/// False candidates per record: its candidates minus its expected true pair (the pairwise
+/// posteriors of its pairs, summed and capped at one).
+fn false_degrees(prep: &Prepared) -> (Vec<f64>, Vec<f64>) {
+    let mut ldeg = vec![0.0f64; prep.records.n_left()];
+    let mut rdeg = vec![0.0f64; prep.records.n_right()];
+    let mut ltrue = vec![0.0f64; prep.records.n_left()];
+    let mut rtrue = vec![0.0f64; prep.records.n_right()];
+    for i in 0..prep.cands.len() {
+        let (a, b) = (prep.cands.left[i] as usize, prep.cands.right[i] as usize);
+        let q = confidence::pairwise(prep.theta[i]);
+        ldeg[a] += 1.0;
+        rdeg[b] += 1.0;
+        ltrue[a] += q;
+        rtrue[b] += q;
+    }
+    let l = ldeg
+        .iter()
+        .zip(&ltrue)
+        .map(|(d, t)| (d - t.min(1.0)).max(0.0))
+        .collect();
+    let r = rdeg
+        .iter()
+        .zip(&rtrue)
+        .map(|(d, t)| (d - t.min(1.0)).max(0.0))
+        .collect();
+    (l, r)
+}
+
+fn verdict_rule(cfg: &Config) -> VerdictRule {
+    VerdictRule {
+        feasible_margin: cfg.assess.feasible_margin,
+        infeasible_margin: cfg.assess.infeasible_margin,
+        feasible_error: cfg.assess.feasible_error,
+        infeasible_error: cfg.assess.infeasible_error,
+    }
+}
+
+/// Matches on theta and assesses feasibility (with the bootstrap forecast).
+fn match_and_assess(prep: &mut Prepared, progress: &dyn Progress) -> (Matching, Assessment) {
+    let mut clock = Clock::new();
+    progress.stage("matching");
+    let n_left = prep.records.n_left();
+    let matching =
+        matching::max_weight_matching(n_left, &prep.cands.left, &prep.cands.right, &prep.theta);
+    clock.lap("matching", &mut prep.timings);
+    progress.stage("assessing");
+    let fc = forecast::forecast(
+        n_left,
+        &prep.cands.left,
+        &prep.cands.right,
+        &matching.chosen,
+        &prep.fit,
+        &ForecastOptions {
+            replicates: prep.config.assess.replicates,
+            seed: prep.config.assess.seed,
+            max_pairs: 2_000_000,
+        },
+    );
+    let (ld, rd) = false_degrees(prep);
+    let assessment = reliability::assess(
+        &prep.fit,
+        AssessInput {
+            n_left,
+            n_right: prep.records.n_right(),
+            n_pairs: prep.cands.len(),
+            fields: prep.separations.clone(),
+            left_false_degree: &ld,
+            right_false_degree: &rd,
+            forecast: fc,
+        },
+        &verdict_rule(&prep.config),
+    );
+    clock.lap("assessing", &mut prep.timings);
+    (matching, assessment)
+}
+
+/// The feasibility assessment without writing links.
+pub fn assess_only(prep: &mut Prepared, progress: &dyn Progress) -> Assessment {
+    match_and_assess(prep, progress).1
+}
+
+/// The lowest cut-off whose estimated precision (mean confidence of the links at or above it)
+/// meets `target`; 1.0 when none does.
+pub fn cutoff_for_precision(confidences: &[f64], target: f64) -> f64 {
+    let mut c: Vec<f64> = confidences.to_vec();
+    c.sort_by(|a, b| b.total_cmp(a));
+    let mut best = 1.0;
+    let mut sum = 0.0;
+    let mut i = 0;
+    while i < c.len() {
+        // Take every link tied at this confidence together.
+        let v = c[i];
+        while i < c.len() && c[i] == v {
+            sum += c[i];
+            i += 1;
+        }
+        if sum / i as f64 >= target {
+            best = v;
+        }
+    }
+    best
+}
+
+/// The full run after [`prepare`]: match, assess, score confidence, decide.
+pub fn link(prep: &mut Prepared, progress: &dyn Progress) -> Linkage {
+    let (matching, assessment) = match_and_assess(prep, progress);
+    let mut clock = Clock::new();
+    progress.stage("confidence");
+    let confidence = confidence::marginals(
+        prep.records.n_left(),
+        &prep.cands.left,
+        &prep.cands.right,
+        &prep.theta,
+        &BpOptions::default(),
+    );
+    if confidence.not_converged > 0 {
+        prep.warnings.push(format!(
+            "belief propagation hit its iteration cap in {} component(s); their confidences are approximate",
+            confidence.not_converged
+        ));
+    }
+    let chosen_conf: Vec<f64> = matching.chosen.iter().map(|&i| confidence.p[i]).collect();
+    let cutoff = match prep.config.link.target_precision {
+        Some(t) => cutoff_for_precision(&chosen_conf, t),
+        None => prep.config.link.min_confidence,
+    };
+    let identified = reliability::identification_problems(&prep.fit, &prep.separations).is_empty();
+    let links: Vec<usize> = if identified {
+        matching
+            .chosen
+            .iter()
+            .copied()
+            .filter(|&i| confidence.p[i] >= cutoff)
+            .collect()
+    } else {
+        // The classes are not identified: no link can be reported with any confidence.
+        Vec::new()
+    };
+    clock.lap("confidence", &mut prep.timings);
+    Linkage {
+        matching,
+        confidence,
+        assessment,
+        links,
+        cutoff,
+    }
+}
+
+/// The level of field `k` for pair `i`, as written in outputs: the level number, or
+/// "missing".
+pub fn level_text(prep: &Prepared, i: usize, k: usize) -> String {
+    match prep.comparison.level(prep.comparison.codes[i], k) {
+        MISSING_LEVEL => "missing".to_string(),
+        l => l.to_string(),
+    }
+}
+
+/// Whether a field uses the date method (for outputs that show values).
+pub fn is_date(prep: &Prepared, k: usize) -> bool {
+    prep.config.field[k].method == Method::Date
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn precision_cutoff() {
+        // Means of the top k: 0.99, 0.97, 0.9, 0.825, 0.76.
+        let c = [0.6, 0.99, 0.95, 0.76, 0.5];
+        assert_eq!(cutoff_for_precision(&c, 0.89), 0.76);
+        assert_eq!(cutoff_for_precision(&c, 0.96), 0.95);
+        assert_eq!(cutoff_for_precision(&c, 0.8), 0.6);
+        assert_eq!(cutoff_for_precision(&c, 0.999), 1.0);
+        assert_eq!(cutoff_for_precision(&c, 0.5), 0.5);
+    }
+}

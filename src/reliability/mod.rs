@@ -1,0 +1,258 @@
+//! Reliability: can these fields support one-to-one linkage at this degree, how many links
+//! will be wrong, and how far to trust each link.
+//!
+//! In: the fit, the candidate graph and (for the forecast) the found matching. Out: an
+//! [`Assessment`] with per-field separation, the margin sqrt(d)·B against the planted-matching
+//! threshold 1, a bootstrap forecast of the mismatch rate and a verdict; and per-pair
+//! confidences under the one-to-one constraint ([`confidence`]). Never reads or writes files.
+
+pub mod confidence;
+pub mod forecast;
+pub mod separation;
+
+use crate::model::Fit;
+use forecast::Forecast;
+use separation::FieldSeparation;
+use serde::Serialize;
+
+/// The feasibility verdict.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Verdict {
+    /// The fields separate true from false pairs well enough for this degree.
+    Feasible,
+    /// Close to the threshold: expect a noticeable share of wrong links.
+    Borderline,
+    /// The fields cannot support one-to-one linkage at this degree.
+    Infeasible,
+}
+
+impl Verdict {
+    /// The verdict as written in outputs.
+    pub fn as_str(&self) -> &'static str {
+        match self {
+            Verdict::Feasible => "feasible",
+            Verdict::Borderline => "borderline",
+            Verdict::Infeasible => "infeasible",
+        }
+    }
+}
+
+/// Thresholds of the verdict.
+#[derive(Debug, Clone)]
+pub struct VerdictRule {
+    /// Margins up to this are feasible.
+    pub feasible_margin: f64,
+    /// Margins from this on are infeasible.
+    pub infeasible_margin: f64,
+    /// Forecast error rates up to this are feasible.
+    pub feasible_error: f64,
+    /// Forecast error rates from this on are infeasible.
+    pub infeasible_error: f64,
+}
+
+/// The distribution of false candidates per record.
+#[derive(Debug, Clone, Serialize)]
+pub struct DegreeStats {
+    /// Mean false candidates per left record.
+    pub mean_left: f64,
+    /// Mean false candidates per right record.
+    pub mean_right: f64,
+    /// 95th percentile per left record.
+    pub p95_left: f64,
+    /// 95th percentile per right record.
+    pub p95_right: f64,
+    /// Largest per left record.
+    pub max_left: f64,
+    /// Largest per right record.
+    pub max_right: f64,
+    /// Histogram of left records' false degree: counts for 0, 1, 2-3, 4-7, 8-15, ... .
+    pub histogram_left: Vec<u64>,
+}
+
+/// Everything the feasibility check says.
+#[derive(Debug, Clone, Serialize)]
+pub struct Assessment {
+    /// Per-field separation.
+    pub fields: Vec<FieldSeparation>,
+    /// B = prod_k B_k.
+    pub bhattacharyya: f64,
+    /// sum_k -ln B_k.
+    pub nats_supplied: f64,
+    /// (1/2) ln d: the separation the degree asks for.
+    pub nats_needed: f64,
+    /// Estimated true pairs among the candidates: p |C|.
+    pub estimated_true_pairs: f64,
+    /// Estimated false candidates |F| = |C| - p |C|.
+    pub false_pairs: f64,
+    /// d = |F| / sqrt(|L| |R|).
+    pub mean_false_degree: f64,
+    /// The false-degree distribution.
+    pub false_degree: DegreeStats,
+    /// sqrt(d) B; recovery needs it below 1.
+    pub margin: f64,
+    /// The bootstrap forecast, when run.
+    pub forecast: Option<Forecast>,
+    /// The verdict.
+    pub verdict: Verdict,
+    /// Plain-language reasons for the verdict.
+    pub reasons: Vec<String>,
+}
+
+/// Why the fit itself cannot be trusted, if it cannot: a list of plain-language reasons.
+pub fn identification_problems(fit: &Fit, fields: &[FieldSeparation]) -> Vec<String> {
+    let mut out = Vec::new();
+    if fields.len() < 3 {
+        out.push(format!(
+            "only {} compared field(s): a two-class mixture of independent fields needs at least three to be identified (common practice for latent class models)",
+            fields.len()
+        ));
+    }
+    if !fields.is_empty() && fields.iter().all(|f| f.adds_nothing) {
+        out.push(
+            "no field separates true from false pairs: m and u are nearly equal on every field"
+                .into(),
+        );
+    }
+    if fit.p < 1e-5 || fit.p > 0.99 {
+        out.push(format!(
+            "the fit found a degenerate share of true pairs (p = {:.2e}) and cannot tell the two classes apart",
+            fit.p
+        ));
+    }
+    if fit.switched {
+        let agreeing = fit
+            .m
+            .iter()
+            .zip(&fit.u)
+            .filter(|(m, u)| m[0] > u[0])
+            .count();
+        if 2 * agreeing <= fit.m.len() {
+            out.push("the fit put agreement in the false-pair class on most fields (label switching), so the classes are not identified".into());
+        }
+    }
+    out
+}
+
+/// The false-degree distribution from per-record candidate counts and the estimated number of
+/// true pairs of each record (at most one).
+pub fn degree_stats(left_deg: &[f64], right_deg: &[f64]) -> DegreeStats {
+    let stats = |v: &[f64]| -> (f64, f64, f64) {
+        if v.is_empty() {
+            return (0.0, 0.0, 0.0);
+        }
+        let mut s = v.to_vec();
+        s.sort_by(f64::total_cmp);
+        let mean = s.iter().sum::<f64>() / s.len() as f64;
+        let p95 = s[((s.len() - 1) as f64 * 0.95).round() as usize];
+        (mean, p95, s[s.len() - 1])
+    };
+    let (ml, pl, xl) = stats(left_deg);
+    let (mr, pr, xr) = stats(right_deg);
+    let mut histogram_left = vec![0u64; 1];
+    for &d in left_deg {
+        let d = d.round().max(0.0) as u64;
+        let bin = if d == 0 {
+            0
+        } else {
+            64 - d.leading_zeros() as usize
+        };
+        if histogram_left.len() <= bin {
+            histogram_left.resize(bin + 1, 0);
+        }
+        histogram_left[bin] += 1;
+    }
+    DegreeStats {
+        mean_left: ml,
+        mean_right: mr,
+        p95_left: pl,
+        p95_right: pr,
+        max_left: xl,
+        max_right: xr,
+        histogram_left,
+    }
+}
+
+/// Inputs to [`assess`] besides the fit.
+pub struct AssessInput<'a> {
+    /// Records on the left.
+    pub n_left: usize,
+    /// Records on the right.
+    pub n_right: usize,
+    /// Candidate pairs.
+    pub n_pairs: usize,
+    /// Per-field separation.
+    pub fields: Vec<FieldSeparation>,
+    /// False candidates per left record.
+    pub left_false_degree: &'a [f64],
+    /// False candidates per right record.
+    pub right_false_degree: &'a [f64],
+    /// The bootstrap forecast, if run.
+    pub forecast: Option<Forecast>,
+}
+
+/// Combines separation, degree and forecast into the verdict.
+pub fn assess(fit: &Fit, input: AssessInput<'_>, rule: &VerdictRule) -> Assessment {
+    let b: f64 = input.fields.iter().map(|f| f.bhattacharyya).product();
+    let supplied: f64 = input.fields.iter().map(|f| f.nats).sum();
+    let true_pairs = fit.p * input.n_pairs as f64;
+    let false_pairs = (input.n_pairs as f64 - true_pairs).max(0.0);
+    let scale = ((input.n_left as f64) * (input.n_right as f64)).sqrt();
+    let d = if scale > 0.0 {
+        false_pairs / scale
+    } else {
+        0.0
+    };
+    let margin = d.sqrt() * b;
+    let needed = if d > 1.0 { 0.5 * d.ln() } else { 0.0 };
+    let mut reasons = identification_problems(fit, &input.fields);
+    let forecast_rate = input.forecast.as_ref().map(|f| f.error_rate);
+    let verdict = if !reasons.is_empty() {
+        Verdict::Infeasible
+    } else if margin >= rule.infeasible_margin
+        || forecast_rate.is_some_and(|e| e >= rule.infeasible_error)
+    {
+        if margin >= rule.infeasible_margin {
+            reasons.push(format!(
+                "the margin sqrt(d)·B = {margin:.3} is at or above {:.2}: the fields supply {supplied:.2} nats of separation where this degree needs {needed:.2}",
+                rule.infeasible_margin
+            ));
+        }
+        if let Some(e) = forecast_rate.filter(|&e| e >= rule.infeasible_error) {
+            reasons.push(format!(
+                "the forecast mismatch rate {:.1}% is at or above {:.1}%",
+                e * 100.0,
+                rule.infeasible_error * 100.0
+            ));
+        }
+        Verdict::Infeasible
+    } else if margin <= rule.feasible_margin
+        && forecast_rate.is_none_or(|e| e <= rule.feasible_error)
+    {
+        reasons.push(format!(
+            "the margin sqrt(d)·B = {margin:.3e} is well below 1 and the forecast mismatch rate is {}",
+            forecast_rate.map_or("not computed".to_string(), |e| format!("{:.2}%", e * 100.0))
+        ));
+        Verdict::Feasible
+    } else {
+        reasons.push(format!(
+            "margin sqrt(d)·B = {margin:.3}, forecast mismatch rate {}: between the feasible and infeasible settings",
+            forecast_rate.map_or("not computed".to_string(), |e| format!("{:.2}%", e * 100.0))
+        ));
+        Verdict::Borderline
+    };
+    Assessment {
+        fields: input.fields,
+        bhattacharyya: b,
+        nats_supplied: supplied,
+        nats_needed: needed,
+        estimated_true_pairs: true_pairs,
+        false_pairs,
+        mean_false_degree: d,
+        false_degree: degree_stats(input.left_false_degree, input.right_false_degree),
+        margin,
+        forecast: input.forecast,
+        verdict,
+        reasons,
+    }
+}

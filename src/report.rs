@@ -1,0 +1,526 @@
+//! Outputs: links, unlinked records, the clerical-review list and summary.json.
+//!
+//! In: a [`Prepared`] run and, for `link`, its [`Linkage`]. Out: files in the output folder,
+//! written through [`OutputSet`] so that either all of them appear or none. Every input record
+//! ends up in exactly one of links.csv / unlinked_left.csv (left) and links.csv /
+//! unlinked_right.csv (right). Numbers are printed with fixed rules so that a rerun gives the
+//! same bytes.
+
+use crate::error::Result;
+use crate::io::OutputSet;
+use crate::pipeline::{level_text, Linkage, Prepared};
+use crate::reliability::forecast::Forecast;
+use crate::reliability::{Assessment, DegreeStats, Verdict};
+use serde::Serialize;
+use std::io::Write;
+use std::path::{Path, PathBuf};
+
+/// The tool's version, as written in outputs.
+pub const VERSION: &str = env!("CARGO_PKG_VERSION");
+
+/// Formats a probability or weight with a fixed number of decimals.
+fn num(x: f64) -> String {
+    format!("{x:.6}")
+}
+
+fn csv_writer(w: &mut dyn Write) -> csv::Writer<&mut dyn Write> {
+    csv::WriterBuilder::new().from_writer(w)
+}
+
+fn to_io(e: csv::Error) -> std::io::Error {
+    std::io::Error::other(e.to_string())
+}
+
+/// Per field in summary.json.
+#[derive(Debug, Serialize)]
+pub struct FieldSummary {
+    /// Field label.
+    pub name: String,
+    /// Comparison method.
+    pub method: String,
+    /// Level names, strongest agreement first.
+    pub levels: Vec<String>,
+    /// m-probabilities per level.
+    pub m: Vec<f64>,
+    /// u-probabilities per level.
+    pub u: Vec<f64>,
+    /// Share of true pairs with the field missing.
+    pub m_missing: f64,
+    /// Share of false pairs with the field missing.
+    pub u_missing: f64,
+    /// B_k.
+    pub bhattacharyya: f64,
+    /// -ln B_k.
+    pub separation_nats: f64,
+    /// True when the field adds (almost) nothing.
+    pub adds_nothing: bool,
+    /// Share of left records with the field missing.
+    pub missing_left: f64,
+    /// Share of right records with the field missing.
+    pub missing_right: f64,
+    /// Whether value-frequency weighting is on.
+    pub frequency: bool,
+}
+
+/// Per pass in summary.json.
+#[derive(Debug, Serialize)]
+pub struct PassSummary {
+    /// Pass label.
+    pub name: String,
+    /// Key parts.
+    pub keys: Vec<String>,
+    /// Pairs produced by this pass alone.
+    pub pairs: u64,
+    /// Blocks with records on both sides.
+    pub blocks: u64,
+    /// Largest kept block, in pairs.
+    pub largest_block: u64,
+    /// Blocks skipped by the cap.
+    pub skipped_blocks: usize,
+}
+
+/// The EM fit in summary.json.
+#[derive(Debug, Serialize)]
+pub struct FitSummary {
+    /// Estimated share of candidate pairs that are true.
+    pub p: f64,
+    /// Log-likelihood at the fit.
+    pub loglik: f64,
+    /// EM iterations.
+    pub iterations: usize,
+    /// Whether EM converged.
+    pub converged: bool,
+    /// Whether the label-switching guard swapped the classes.
+    pub label_switch_corrected: bool,
+    /// Distinct agreement patterns.
+    pub patterns: usize,
+}
+
+/// summary.json.
+#[derive(Debug, Serialize)]
+pub struct Summary {
+    /// Tool name.
+    pub tool: &'static str,
+    /// Tool version.
+    pub version: &'static str,
+    /// Which subcommand wrote this.
+    pub command: &'static str,
+    /// Left records read.
+    pub left_records: usize,
+    /// Right records read.
+    pub right_records: usize,
+    /// Candidate pairs after blocking.
+    pub candidate_pairs: usize,
+    /// d = estimated false candidates / sqrt(|L| |R|).
+    pub mean_false_degree: f64,
+    /// B = prod_k B_k.
+    pub bhattacharyya: f64,
+    /// sqrt(d) B, against the threshold 1.
+    pub margin: f64,
+    /// (1/2) ln d.
+    pub separation_needed_nats: f64,
+    /// sum_k -ln B_k.
+    pub separation_supplied_nats: f64,
+    /// feasible | borderline | infeasible.
+    pub verdict: Verdict,
+    /// Why.
+    pub verdict_reasons: Vec<String>,
+    /// Bootstrap forecast of the share of true pairs not linked to their partner.
+    pub forecast_error_rate: Option<f64>,
+    /// Its interval (2.5% and 97.5% points of the replicates).
+    pub forecast_interval: Option<[f64; 2]>,
+    /// Details of the forecast.
+    pub forecast: Option<Forecast>,
+    /// Links written.
+    pub links: Option<usize>,
+    /// Pairs in the optimum matching left out by the cut-off.
+    pub links_below_cutoff: Option<usize>,
+    /// The confidence cut-off in force.
+    pub confidence_cutoff: Option<f64>,
+    /// Mean confidence of the links written.
+    pub estimated_precision: Option<f64>,
+    /// Sum of link confidences over the estimated number of true pairs among candidates.
+    pub estimated_recall: Option<f64>,
+    /// p |C|.
+    pub estimated_true_pairs: f64,
+    /// The false-degree distribution.
+    pub false_degree: DegreeStats,
+    /// The EM fit.
+    pub fit: FitSummary,
+    /// Per field.
+    pub fields: Vec<FieldSummary>,
+    /// Per pass.
+    pub passes: Vec<PassSummary>,
+    /// How confidences were computed: components enumerated exactly and by belief propagation.
+    pub confidence_components: Option<[usize; 3]>,
+    /// Warnings, in plain words.
+    pub warnings: Vec<String>,
+}
+
+fn summary(
+    prep: &Prepared,
+    a: &Assessment,
+    link: Option<&Linkage>,
+    command: &'static str,
+) -> Summary {
+    let fields = prep
+        .records
+        .fields
+        .iter()
+        .enumerate()
+        .map(|(k, fv)| FieldSummary {
+            name: fv.spec.name.clone(),
+            method: format!("{:?}", fv.spec.method).to_lowercase(),
+            levels: prep.comparison.comparators[k].level_names(),
+            m: prep.fit.m[k].clone(),
+            u: prep.fit.u[k].clone(),
+            m_missing: prep.fit.m_missing[k],
+            u_missing: prep.fit.u_missing[k],
+            bhattacharyya: a.fields[k].bhattacharyya,
+            separation_nats: a.fields[k].nats,
+            adds_nothing: a.fields[k].adds_nothing,
+            missing_left: fv.left_missing_rate(),
+            missing_right: fv.right_missing_rate(),
+            frequency: fv.spec.frequency,
+        })
+        .collect();
+    let passes = prep
+        .pass_stats
+        .iter()
+        .zip(&prep.config.block)
+        .map(|(s, b)| PassSummary {
+            name: s.name.clone(),
+            keys: b.keys.clone(),
+            pairs: s.pairs,
+            blocks: s.blocks,
+            largest_block: s.largest_block,
+            skipped_blocks: s.skipped.len(),
+        })
+        .collect();
+    let (links, below, cutoff, precision, recall, comps) = match link {
+        Some(l) => {
+            let conf: f64 = l.links.iter().map(|&i| l.confidence.p[i]).sum();
+            let precision = if l.links.is_empty() {
+                None
+            } else {
+                Some(conf / l.links.len() as f64)
+            };
+            let recall = if a.estimated_true_pairs > 0.0 {
+                Some((conf / a.estimated_true_pairs).min(1.0))
+            } else {
+                None
+            };
+            (
+                Some(l.links.len()),
+                Some(l.matching.chosen.len() - l.links.len()),
+                Some(l.cutoff),
+                precision,
+                recall,
+                Some([
+                    l.confidence.exact_components,
+                    l.confidence.bp_components,
+                    l.confidence.not_converged,
+                ]),
+            )
+        }
+        None => (None, None, None, None, None, None),
+    };
+    Summary {
+        tool: "dovetail",
+        version: VERSION,
+        command,
+        left_records: prep.records.n_left(),
+        right_records: prep.records.n_right(),
+        candidate_pairs: prep.cands.len(),
+        mean_false_degree: a.mean_false_degree,
+        bhattacharyya: a.bhattacharyya,
+        margin: a.margin,
+        separation_needed_nats: a.nats_needed,
+        separation_supplied_nats: a.nats_supplied,
+        verdict: a.verdict,
+        verdict_reasons: a.reasons.clone(),
+        forecast_error_rate: a.forecast.as_ref().map(|f| f.error_rate),
+        forecast_interval: a.forecast.as_ref().map(|f| f.interval),
+        forecast: a.forecast.clone(),
+        links,
+        links_below_cutoff: below,
+        confidence_cutoff: cutoff,
+        estimated_precision: precision,
+        estimated_recall: recall,
+        estimated_true_pairs: a.estimated_true_pairs,
+        false_degree: a.false_degree.clone(),
+        fit: FitSummary {
+            p: prep.fit.p,
+            loglik: prep.fit.loglik,
+            iterations: prep.fit.iterations,
+            converged: prep.fit.converged,
+            label_switch_corrected: prep.fit.switched,
+            patterns: prep.counts.patterns.len(),
+        },
+        fields,
+        passes,
+        confidence_components: comps,
+        warnings: prep.warnings.clone(),
+    }
+}
+
+fn write_summary(out: &mut OutputSet, s: &Summary) -> Result<()> {
+    out.write("summary.json", |w| {
+        serde_json::to_writer_pretty(&mut *w, s).map_err(std::io::Error::other)?;
+        w.write_all(b"\n")
+    })
+}
+
+/// Writes summary.json for `assess`.
+pub fn write_assessment(dir: &Path, prep: &Prepared, a: &Assessment) -> Result<Vec<PathBuf>> {
+    let mut out = OutputSet::new(dir)?;
+    write_summary(&mut out, &summary(prep, a, None, "assess"))?;
+    out.commit()
+}
+
+/// Why a record stays unlinked.
+fn unlinked_reason(has_candidate: bool, in_optimum: bool) -> &'static str {
+    match (has_candidate, in_optimum) {
+        (false, _) => "no candidate pair",
+        (true, true) => "below the confidence cut-off",
+        (true, false) => "not chosen by the one-to-one optimum",
+    }
+}
+
+/// Writes links.csv, unlinked_left.csv, unlinked_right.csv, review.csv and summary.json.
+pub fn write_linkage(dir: &Path, prep: &Prepared, l: &Linkage) -> Result<Vec<PathBuf>> {
+    let n_pairs = prep.cands.len();
+    let names: Vec<&str> = prep.config.field.iter().map(|f| f.name.as_str()).collect();
+    let mut out = OutputSet::new(dir)?;
+
+    out.write("links.csv", |w| {
+        let mut c = csv_writer(w);
+        let mut head = vec!["left_id", "right_id", "weight", "confidence"];
+        head.extend(names.iter().copied());
+        c.write_record(&head).map_err(to_io)?;
+        for &i in &l.links {
+            let mut row = vec![
+                prep.records.left_ids[prep.cands.left[i] as usize].clone(),
+                prep.records.right_ids[prep.cands.right[i] as usize].clone(),
+                num(prep.weight[i]),
+                num(l.confidence.p[i]),
+            ];
+            row.extend((0..names.len()).map(|k| level_text(prep, i, k)));
+            c.write_record(&row).map_err(to_io)?;
+        }
+        c.flush()
+    })?;
+
+    // Best candidate of every record, and membership of the optimum and of the links.
+    let nl = prep.records.n_left();
+    let nr = prep.records.n_right();
+    let mut best_l: Vec<Option<usize>> = vec![None; nl];
+    let mut best_r: Vec<Option<usize>> = vec![None; nr];
+    let better = |i: usize, cur: Option<usize>| match cur {
+        None => true,
+        Some(j) => l.confidence.p[i] > l.confidence.p[j],
+    };
+    for i in 0..n_pairs {
+        let (a, b) = (prep.cands.left[i] as usize, prep.cands.right[i] as usize);
+        if better(i, best_l[a]) {
+            best_l[a] = Some(i);
+        }
+        if better(i, best_r[b]) {
+            best_r[b] = Some(i);
+        }
+    }
+    let mut linked_l = vec![false; nl];
+    let mut linked_r = vec![false; nr];
+    let mut opt_l = vec![false; nl];
+    let mut opt_r = vec![false; nr];
+    let mut is_link = vec![false; n_pairs];
+    for &i in &l.links {
+        linked_l[prep.cands.left[i] as usize] = true;
+        linked_r[prep.cands.right[i] as usize] = true;
+        is_link[i] = true;
+    }
+    for &i in &l.matching.chosen {
+        opt_l[prep.cands.left[i] as usize] = true;
+        opt_r[prep.cands.right[i] as usize] = true;
+    }
+    let unlinked = |out: &mut OutputSet, name: &str, left: bool| {
+        out.write(name, |w| {
+            let mut c = csv_writer(w);
+            c.write_record(["id", "reason", "best_candidate", "best_confidence"])
+                .map_err(to_io)?;
+            let (ids, linked, opt, best) = if left {
+                (&prep.records.left_ids, &linked_l, &opt_l, &best_l)
+            } else {
+                (&prep.records.right_ids, &linked_r, &opt_r, &best_r)
+            };
+            for r in 0..ids.len() {
+                if linked[r] {
+                    continue;
+                }
+                let (other, conf) = match best[r] {
+                    Some(i) => {
+                        let other = if left {
+                            &prep.records.right_ids[prep.cands.right[i] as usize]
+                        } else {
+                            &prep.records.left_ids[prep.cands.left[i] as usize]
+                        };
+                        (other.clone(), num(l.confidence.p[i]))
+                    }
+                    None => (String::new(), String::new()),
+                };
+                c.write_record([
+                    ids[r].as_str(),
+                    unlinked_reason(best[r].is_some(), opt[r]),
+                    &other,
+                    &conf,
+                ])
+                .map_err(to_io)?;
+            }
+            c.flush()
+        })
+    };
+    unlinked(&mut out, "unlinked_left.csv", true)?;
+    unlinked(&mut out, "unlinked_right.csv", false)?;
+
+    let [lo, hi] = prep.config.link.review_band;
+    let mut review: Vec<usize> = (0..n_pairs)
+        .filter(|&i| (lo..=hi).contains(&l.confidence.p[i]))
+        .collect();
+    // Most useful first: the pairs whose confidence is closest to even odds, where a clerk's
+    // decision changes the most; then by weight, then by input order.
+    review.sort_by(|&x, &y| {
+        let dx = (l.confidence.p[x] - 0.5).abs();
+        let dy = (l.confidence.p[y] - 0.5).abs();
+        dx.total_cmp(&dy)
+            .then_with(|| prep.weight[y].total_cmp(&prep.weight[x]))
+            .then(x.cmp(&y))
+    });
+    out.write("review.csv", |w| {
+        let mut c = csv_writer(w);
+        let mut head: Vec<String> = ["left_id", "right_id", "status", "confidence", "weight"]
+            .iter()
+            .map(|s| s.to_string())
+            .collect();
+        for n in &names {
+            head.push(format!("{n}_level"));
+            head.push(format!("{n}_left"));
+            head.push(format!("{n}_right"));
+        }
+        c.write_record(&head).map_err(to_io)?;
+        for &i in &review {
+            let (a, b) = (prep.cands.left[i] as usize, prep.cands.right[i] as usize);
+            let status = if is_link[i] {
+                "linked"
+            } else if l.matching.chosen.binary_search(&i).is_ok() {
+                "below cut-off"
+            } else {
+                "runner-up"
+            };
+            let mut row = vec![
+                prep.records.left_ids[a].clone(),
+                prep.records.right_ids[b].clone(),
+                status.to_string(),
+                num(l.confidence.p[i]),
+                num(prep.weight[i]),
+            ];
+            for (k, f) in prep.config.field.iter().enumerate() {
+                row.push(level_text(prep, i, k));
+                row.push(
+                    prep.left
+                        .column(f.left_column())
+                        .get(a)
+                        .cloned()
+                        .unwrap_or_default(),
+                );
+                row.push(
+                    prep.right
+                        .column(f.right_column())
+                        .get(b)
+                        .cloned()
+                        .unwrap_or_default(),
+                );
+            }
+            c.write_record(&row).map_err(to_io)?;
+        }
+        c.flush()
+    })?;
+
+    write_summary(&mut out, &summary(prep, &l.assessment, Some(l), "link"))?;
+    out.commit()
+}
+
+/// The feasibility verdict and per-field table as plain text for the terminal.
+pub fn assessment_text(prep: &Prepared, a: &Assessment) -> String {
+    let mut t = String::new();
+    t.push_str(&format!(
+        "records: {} left, {} right; candidate pairs: {}; estimated true pairs: {:.0}\n",
+        prep.records.n_left(),
+        prep.records.n_right(),
+        prep.cands.len(),
+        a.estimated_true_pairs
+    ));
+    t.push_str(&format!(
+        "false candidates per record d = {:.3}; needed separation (1/2) ln d = {:.2} nats\n\n",
+        a.mean_false_degree, a.nats_needed
+    ));
+    let width = prep
+        .config
+        .field
+        .iter()
+        .map(|f| f.name.len())
+        .max()
+        .unwrap_or(5)
+        .max(5);
+    t.push_str(&format!(
+        "  {:<width$}  {:>9}  {:>8}  {:>8}  {:>8}\n",
+        "field", "B_k", "nats", "miss L", "miss R"
+    ));
+    for (k, f) in a.fields.iter().enumerate() {
+        let fv = &prep.records.fields[k];
+        t.push_str(&format!(
+            "  {:<width$}  {:>9.4}  {:>8.2}  {:>7.1}%  {:>7.1}%{}\n",
+            f.name,
+            f.bhattacharyya,
+            f.nats,
+            fv.left_missing_rate() * 100.0,
+            fv.right_missing_rate() * 100.0,
+            if f.adds_nothing {
+                "  (adds nothing)"
+            } else {
+                ""
+            }
+        ));
+    }
+    t.push_str(&format!(
+        "  {:<width$}  {:>9.3e}  {:>8.2}\n\n",
+        "total", a.bhattacharyya, a.nats_supplied
+    ));
+    t.push_str(&format!(
+        "margin sqrt(d)·B = {:.4} (threshold 1)\n",
+        a.margin
+    ));
+    match &a.forecast {
+        Some(f) => t.push_str(&format!(
+            "forecast mismatch rate: {:.2}% (interval {:.2}% to {:.2}%, {} replicates{})\n",
+            f.error_rate * 100.0,
+            f.interval[0] * 100.0,
+            f.interval[1] * 100.0,
+            f.replicates,
+            if f.subsampled { ", subsampled" } else { "" }
+        )),
+        None => t.push_str("forecast mismatch rate: not computed\n"),
+    }
+    t.push_str(&format!("verdict: {}\n", a.verdict.as_str().to_uppercase()));
+    for r in &a.reasons {
+        t.push_str(&format!("  - {r}\n"));
+    }
+    if a.verdict != Verdict::Feasible {
+        t.push_str(
+            "\nWARNING: these fields may not support reliable one-to-one linkage at this degree. \
+             Links written now will include a noticeable share of wrong ones. To improve: add a \
+             distinguishing field, tighten blocking so each record has fewer false candidates, or \
+             clean the data (fewer missing or mistyped values).\n",
+        );
+    }
+    t
+}

@@ -1,0 +1,13 @@
+//! Integration tests: they run the built `dovetail` binary on small fixtures, each in a fresh
+//! temporary folder, and check files, exit codes and error lines. One test binary; the
+//! modules live in tests/it/.
+
+#[path = "it/common.rs"]
+mod common;
+
+#[path = "it/bad_input.rs"]
+mod bad_input;
+#[path = "it/link_sample.rs"]
+mod link_sample;
+#[path = "it/match_cmd.rs"]
+mod match_cmd;
