@@ -17,7 +17,7 @@
 //! BP is exact on trees; on graphs with cycles it is an approximation. Components in parallel;
 //! each is computed sequentially, so the result does not depend on the thread count.
 
-use crate::matching::components;
+use crate::matching::{components, Components};
 use rayon::prelude::*;
 
 /// Components with at most this many one-to-one linkages (bounded through the product of
@@ -79,10 +79,9 @@ pub fn marginals(
     opts: &BpOptions,
 ) -> Marginals {
     let comps = components(n_left, left, right, |i| theta[i] > THETA_CUTOFF);
-    let solved: Vec<(Vec<(usize, f64)>, Method)> = comps
-        .pairs
-        .par_iter()
-        .map(|pairs| component_marginals(pairs, left, right, theta, opts))
+    let solved: Vec<(Vec<(usize, f64)>, Method)> = (0..comps.pairs.len())
+        .into_par_iter()
+        .map(|c| component_marginals(&comps, c, left, right, theta, opts))
         .collect();
     let mut p: Vec<f64> = theta.iter().map(|&t| pairwise(t)).collect();
     let mut out = Marginals {
@@ -150,28 +149,20 @@ impl Graph {
     }
 }
 
-/// Sorted distinct values: the local numbering of a component's records.
-pub(crate) fn distinct(ids: impl Iterator<Item = u32>) -> Vec<u32> {
-    let mut v: Vec<u32> = ids.collect();
-    v.sort_unstable();
-    v.dedup();
-    v
-}
-
-fn local_graph(pairs: &[usize], left: &[u32], right: &[u32], theta: &[f64]) -> Graph {
-    let ls = distinct(pairs.iter().map(|&i| left[i]));
-    let rs = distinct(pairs.iter().map(|&i| right[i]));
+fn local_graph(comps: &Components, c: usize, left: &[u32], right: &[u32], theta: &[f64]) -> Graph {
+    let pairs = &comps.pairs[c];
     let a = pairs
         .iter()
-        .map(|&i| ls.binary_search(&left[i]).unwrap_or(0))
+        .map(|&i| comps.local_left[left[i] as usize] as usize)
         .collect();
     let b = pairs
         .iter()
-        .map(|&i| rs.binary_search(&right[i]).unwrap_or(0))
+        .map(|&i| comps.local_right[right[i] as usize] as usize)
         .collect();
+    let (nl, nr) = comps.sizes[c];
     Graph::new(
-        ls.len(),
-        rs.len(),
+        nl as usize,
+        nr as usize,
         a,
         b,
         pairs.iter().map(|&i| theta[i]).collect(),
@@ -179,13 +170,15 @@ fn local_graph(pairs: &[usize], left: &[u32], right: &[u32], theta: &[f64]) -> G
 }
 
 fn component_marginals(
-    pairs: &[usize],
+    comps: &Components,
+    c: usize,
     left: &[u32],
     right: &[u32],
     theta: &[f64],
     opts: &BpOptions,
 ) -> (Vec<(usize, f64)>, Method) {
-    let g = local_graph(pairs, left, right, theta);
+    let pairs = &comps.pairs[c];
+    let g = local_graph(comps, c, left, right, theta);
     let linkages_bound = g.by_left.iter().try_fold(1u64, |acc, e| {
         acc.checked_mul(e.len() as u64 + 1)
             .filter(|&v| v <= EXACT_LIMIT)
