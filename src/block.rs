@@ -52,9 +52,15 @@ pub struct PassStats {
     pub blocks: u64,
     /// Largest block, in pairs, among those kept.
     pub largest_block: u64,
+    /// Pairs produced by blocks of more than [`LARGE_BLOCK`] pairs.
+    pub pairs_in_large_blocks: u64,
     /// Blocks skipped by the cap, with their key and pair count.
     pub skipped: Vec<(String, u64)>,
 }
+
+/// A block of more pairs than this counts as large in the statistics (a common surname in a
+/// town-sized table gives blocks of this order).
+pub const LARGE_BLOCK: u64 = 1000;
 
 /// A pass ready to run: its label, key parts and cap.
 #[derive(Debug, Clone)]
@@ -246,6 +252,7 @@ fn run_pass(records: &Records, pass: &Pass) -> (Vec<u64>, PassStats) {
         pairs: 0,
         blocks: 0,
         largest_block: 0,
+        pairs_in_large_blocks: 0,
         skipped: Vec::new(),
     };
     let mut kept: Vec<usize> = Vec::new();
@@ -263,6 +270,9 @@ fn run_pass(records: &Records, pass: &Pass) -> (Vec<u64>, PassStats) {
         stats.blocks += 1;
         stats.pairs += size;
         stats.largest_block = stats.largest_block.max(size);
+        if size > LARGE_BLOCK {
+            stats.pairs_in_large_blocks += size;
+        }
         kept.push(k);
     }
     let pairs: Vec<u64> = kept

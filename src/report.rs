@@ -75,6 +75,8 @@ pub struct PassSummary {
     pub blocks: u64,
     /// Largest kept block, in pairs.
     pub largest_block: u64,
+    /// Share of this pass's pairs that come from blocks of more than 1,000 pairs.
+    pub share_in_large_blocks: f64,
     /// Blocks skipped by the cap.
     pub skipped_blocks: usize,
 }
@@ -194,6 +196,11 @@ fn summary(
             pairs: s.pairs,
             blocks: s.blocks,
             largest_block: s.largest_block,
+            share_in_large_blocks: if s.pairs > 0 {
+                s.pairs_in_large_blocks as f64 / s.pairs as f64
+            } else {
+                0.0
+            },
             skipped_blocks: s.skipped.len(),
         })
         .collect();

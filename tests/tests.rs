@@ -11,3 +11,5 @@ mod bad_input;
 mod link_sample;
 #[path = "it/match_cmd.rs"]
 mod match_cmd;
+#[path = "it/reliability_synth.rs"]
+mod reliability_synth;

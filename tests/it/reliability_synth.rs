@@ -1,0 +1,197 @@
+//! Feasibility forecast and confidence calibration on `dovetail synth` data, against the
+//! generator's truth.
+
+use dovetail::config::Config;
+use dovetail::pipeline::{self, Silent};
+use dovetail::synth::{generate, SynthOptions};
+use std::collections::{HashMap, HashSet};
+use std::path::Path;
+
+/// A synthetic run: the config (with fields removed as asked) and the truth.
+struct Run {
+    prep: pipeline::Prepared,
+    linkage: pipeline::Linkage,
+    truth: HashSet<(String, String)>,
+}
+
+/// Runs the pipeline on generated tables; `drop` removes compared fields, and `blocks`, when
+/// given, replaces the config's blocking passes.
+fn run_with(
+    rows: usize,
+    noise: f64,
+    seed: u64,
+    drop: &[&str],
+    blocks: Option<&str>,
+    dir: &Path,
+) -> Run {
+    let s = generate(&SynthOptions {
+        rows,
+        overlap: 0.7,
+        noise,
+        seed,
+    });
+    std::fs::write(dir.join("left.csv"), &s.left_csv).unwrap();
+    std::fs::write(dir.join("right.csv"), &s.right_csv).unwrap();
+    let mut cfg = s.config_toml.clone();
+    if let Some(b) = blocks {
+        let i = cfg.find("# Two passes").expect("blocking section");
+        let j = cfg.find("[link]").expect("link section");
+        cfg.replace_range(i..j, b);
+    }
+    for f in drop {
+        let i = cfg
+            .find(&format!("[[field]]\nname = \"{f}\""))
+            .expect("field in config");
+        let j = i + 5 + cfg[i + 5..].find("[[").expect("next table");
+        cfg.replace_range(i..j, "");
+    }
+    let config = Config::from_text(&cfg, dir).expect("config");
+    let mut prep = pipeline::prepare(config, &Silent).expect("prepare");
+    let linkage = pipeline::link(&mut prep, &Silent);
+    let truth = s
+        .truth_csv
+        .lines()
+        .skip(1)
+        .map(|l| {
+            let (a, b) = l.split_once(',').unwrap();
+            (a.to_string(), b.to_string())
+        })
+        .collect();
+    Run {
+        prep,
+        linkage,
+        truth,
+    }
+}
+
+fn run(rows: usize, noise: f64, seed: u64, drop: &[&str], dir: &Path) -> Run {
+    run_with(rows, noise, seed, drop, None, dir)
+}
+
+impl Run {
+    fn pair_ids(&self, i: usize) -> (String, String) {
+        let p = &self.prep;
+        (
+            p.records.left_ids[p.cands.left[i] as usize].clone(),
+            p.records.right_ids[p.cands.right[i] as usize].clone(),
+        )
+    }
+
+    /// Share of the true pairs among the candidates that the one-to-one optimum does not
+    /// link (the quantity the bootstrap forecasts).
+    fn actual_mismatch_rate(&self) -> f64 {
+        let chosen: HashSet<usize> = self.linkage.matching.chosen.iter().copied().collect();
+        let mut true_in_c = 0;
+        let mut missed = 0;
+        for i in 0..self.prep.cands.len() {
+            if self.truth.contains(&self.pair_ids(i)) {
+                true_in_c += 1;
+                if !chosen.contains(&i) {
+                    missed += 1;
+                }
+            }
+        }
+        missed as f64 / true_in_c as f64
+    }
+
+    /// (precision of the links written, expected calibration error over 10 equal bins).
+    fn precision_and_ece(&self) -> (f64, f64) {
+        let mut bins: HashMap<usize, (f64, f64, f64)> = HashMap::new();
+        let mut correct = 0.0;
+        for &i in &self.linkage.links {
+            let c = self.linkage.confidence.p[i];
+            let ok = self.truth.contains(&self.pair_ids(i)) as u8 as f64;
+            correct += ok;
+            let e = bins.entry(((c * 10.0) as usize).min(9)).or_default();
+            e.0 += 1.0;
+            e.1 += ok;
+            e.2 += c;
+        }
+        let n = self.linkage.links.len() as f64;
+        // ECE = sum over bins of |hits - sum of confidences| / n (Naeini, Cooper & Hauskrecht
+        // 2015; the usual definition with equal-width bins).
+        let ece = bins
+            .values()
+            .map(|(_, hits, conf)| (hits - conf).abs())
+            .sum::<f64>()
+            / n;
+        (correct / n, ece)
+    }
+
+    fn estimated_precision(&self) -> f64 {
+        let l = &self.linkage;
+        l.links.iter().map(|&i| l.confidence.p[i]).sum::<f64>() / l.links.len() as f64
+    }
+}
+
+#[test]
+fn forecast_tracks_the_actual_mismatch_rate() {
+    // The tolerance: within max(0.01, 0.3 x actual), over noise levels and field sets.
+    // Known limit: with only given name, surname and birth date at noise 0.8 the forecast
+    // is low (2.0% against 3.2% measured); households make true pairs' rivals harder than the
+    // fitted u-law says, which the parametric bootstrap cannot see.
+    let dir = tempfile::tempdir().unwrap();
+    let one_pass = "[[block]]\nkeys = [\"surname:soundex\", \"birth:year\"]\n\n";
+    for (noise, drop, blocks) in [
+        (0.2, &[][..], None),
+        (0.6, &[][..], None),
+        (0.4, &["phone", "sex"][..], None),
+        (0.5, &["postcode", "phone"][..], Some(one_pass)),
+    ] {
+        let r = run_with(2000, noise, 9, drop, blocks, dir.path());
+        let actual = r.actual_mismatch_rate();
+        let forecast = r
+            .linkage
+            .assessment
+            .forecast
+            .as_ref()
+            .expect("forecast")
+            .error_rate;
+        eprintln!("noise {noise}, without {drop:?}: forecast {forecast:.4}, actual {actual:.4}");
+        assert!(
+            (forecast - actual).abs() <= (0.3 * actual).max(0.01),
+            "noise {noise} without {drop:?}: forecast {forecast}, actual {actual}"
+        );
+    }
+}
+
+#[test]
+fn verdict_falls_as_fields_are_removed() {
+    let dir = tempfile::tempdir().unwrap();
+    let full = run(2000, 0.3, 4, &[], dir.path());
+    assert_eq!(full.linkage.assessment.verdict.as_str(), "feasible");
+    // Blocking on the surname's sound alone puts everyone of a common surname together; with
+    // only surname, sex and phone left to tell them apart, one-to-one linkage cannot work.
+    let blocks = "[[block]]\nkeys = [\"surname:soundex\"]\nmax_block_pairs = 100000000\n\n";
+    let bare = run_with(
+        800,
+        0.3,
+        4,
+        &["given", "birth", "postcode"],
+        Some(blocks),
+        dir.path(),
+    );
+    eprintln!(
+        "margins: all fields {:.4}, two fields {:.4}",
+        full.linkage.assessment.margin, bare.linkage.assessment.margin
+    );
+    assert_eq!(bare.linkage.assessment.verdict.as_str(), "infeasible");
+}
+
+#[test]
+fn confidence_is_calibrated_over_noise_levels() {
+    // The targets: expected calibration error at most 0.03 and estimated precision
+    // within 0.02 of the precision measured against the truth.
+    let dir = tempfile::tempdir().unwrap();
+    for noise in [0.1, 0.4, 0.8] {
+        let r = run(2500, noise, 21, &[], dir.path());
+        let (precision, ece) = r.precision_and_ece();
+        let est = r.estimated_precision();
+        eprintln!("noise {noise}: precision {precision:.4}, estimated {est:.4}, ECE {ece:.4}");
+        assert!(ece <= 0.03, "noise {noise}: ECE {ece}");
+        assert!(
+            (est - precision).abs() <= 0.02,
+            "noise {noise}: estimated {est}, measured {precision}"
+        );
+    }
+}
