@@ -406,6 +406,23 @@ fn explain_toml(e: &toml::de::Error) -> String {
     msg
 }
 
+/// A TOML error as one line with its line number and, when the line assigns a key, the key.
+fn toml_error(e: &toml::de::Error, text: &str) -> Error {
+    let mut msg = explain_toml(e);
+    let Some(span) = e.span() else {
+        return Error::config(msg);
+    };
+    let line = line_of(text, span.start);
+    let line_text = text.lines().nth(line as usize - 1).unwrap_or("");
+    if let Some((key, _)) = line_text.split_once('=') {
+        let key = key.trim();
+        if !key.is_empty() && !key.starts_with('[') && !msg.contains(&format!("`{key}`")) {
+            msg = format!("key `{key}`: {msg}");
+        }
+    }
+    Error::config(msg).with_line(line)
+}
+
 impl Config {
     /// Reads and checks a config file; relative paths are resolved against its folder.
     pub fn from_path(path: &Path) -> Result<Config> {
@@ -417,21 +434,9 @@ impl Config {
 
     /// Parses and checks config text; `base_dir` is where relative paths start.
     pub fn from_text(text: &str, base_dir: &Path) -> Result<Config> {
-        let doc: toml::Value = toml::from_str(text).map_err(|e| {
-            let err = Error::config(explain_toml(&e));
-            match e.span() {
-                Some(span) => err.with_line(line_of(text, span.start)),
-                None => err,
-            }
-        })?;
+        let doc: toml::Value = toml::from_str(text).map_err(|e| toml_error(&e, text))?;
         check_keys(&doc)?;
-        let mut cfg: Config = toml::from_str(text).map_err(|e| {
-            let err = Error::config(explain_toml(&e));
-            match e.span() {
-                Some(span) => err.with_line(line_of(text, span.start)),
-                None => err,
-            }
-        })?;
+        let mut cfg: Config = toml::from_str(text).map_err(|e| toml_error(&e, text))?;
         cfg.base_dir = base_dir.to_path_buf();
         cfg.validate()?;
         Ok(cfg)
@@ -730,7 +735,7 @@ min_confidence = 0.5
         let e = err_of(&PINNED.replace("birth:year", "dob:year"));
         assert!(e.contains("field `dob`, which no [[field]] defines"), "{e}");
         let e = err_of(&PINNED.replace("min_confidence = 0.5", "min_confidence = \"x\""));
-        assert!(e.starts_with("line "), "{e}");
+        assert!(e.starts_with("line 20: key `min_confidence`: "), "{e}");
         assert!(!e.contains('\n'));
     }
 

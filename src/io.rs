@@ -455,12 +455,29 @@ impl OutputSet {
 
     /// Renames every temporary file into place.
     pub fn commit(mut self) -> Result<Vec<PathBuf>> {
+        // A target that is a folder cannot be replaced: find out before moving anything.
+        if let Some((_, target)) = self.pending.iter().find(|(_, t)| t.is_dir()) {
+            return Err(Error::output(
+                "a folder of that name is in the way; no output files were left in place",
+            )
+            .with_file(target));
+        }
         let pending = std::mem::take(&mut self.pending);
-        let mut done = Vec::new();
-        for (tmp, target) in &pending {
-            std::fs::rename(tmp, target).map_err(|e| {
-                Error::output(format!("cannot move output into place: {e}")).with_file(target)
-            })?;
+        let mut done: Vec<PathBuf> = Vec::new();
+        for (k, (tmp, target)) in pending.iter().enumerate() {
+            if let Err(e) = std::fs::rename(tmp, target) {
+                // Take back what was moved and drop the rest, so no partial set remains.
+                for moved in &done {
+                    let _ = std::fs::remove_file(moved);
+                }
+                for (rest, _) in &pending[k..] {
+                    let _ = std::fs::remove_file(rest);
+                }
+                return Err(Error::output(format!(
+                    "cannot move output into place ({e}); no output files were left in place"
+                ))
+                .with_file(target));
+            }
             done.push(target.clone());
         }
         Ok(done)

@@ -136,6 +136,60 @@ fn read_side(cfg: &Config, left: bool) -> Result<Table> {
     io::read_table(&cfg.resolve(&spec.path), &read)
 }
 
+/// Leaves out every field that is empty in every row of one table (it could carry no
+/// evidence and would only confuse the fit), and every blocking pass that uses one, with a
+/// warning for each.
+fn drop_empty_fields(
+    mut config: Config,
+    left: &Table,
+    right: &Table,
+    warnings: &mut Vec<String>,
+) -> Result<Config> {
+    let all_empty = |t: &Table, col: &str| t.column(col).iter().all(|v| v.is_empty());
+    let mut empty: Vec<String> = Vec::new();
+    for f in &config.field {
+        for (t, col, side) in [
+            (left, f.left_column(), "left"),
+            (right, f.right_column(), "right"),
+        ] {
+            if all_empty(t, col) && !empty.contains(&f.name) {
+                warnings.push(format!(
+                    "field `{}` is empty in every row of the {side} table; it is left out",
+                    f.name
+                ));
+                empty.push(f.name.clone());
+            }
+        }
+    }
+    if empty.is_empty() {
+        return Ok(config);
+    }
+    config.field.retain(|f| !empty.contains(&f.name));
+    if config.field.is_empty() {
+        return Err(Error::input(
+            "every compared field is empty in one of the tables: nothing to compare",
+        ));
+    }
+    let mut kept = Vec::new();
+    for (i, b) in config.block.drain(..).enumerate() {
+        let uses = b.keys.iter().any(|k| {
+            empty
+                .iter()
+                .any(|e| k.split(':').next() == Some(e.as_str()))
+        });
+        if uses {
+            warnings.push(format!(
+                "{} uses a field that is left out; the pass is skipped",
+                b.name.clone().unwrap_or_else(|| format!("pass {}", i + 1))
+            ));
+        } else {
+            kept.push(b);
+        }
+    }
+    config.block = kept;
+    Ok(config)
+}
+
 /// Reads, blocks, compares and fits.
 pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
     let mut timings = Vec::new();
@@ -144,15 +198,8 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
     progress.stage("reading");
     let left = read_side(&config, true)?;
     let right = read_side(&config, false)?;
+    let config = drop_empty_fields(config, &left, &right, &mut warnings)?;
     let records = records::build(&left, &right, &config.field)?;
-    for fv in &records.fields {
-        if fv.left_missing_rate() == 1.0 || fv.right_missing_rate() == 1.0 {
-            warnings.push(format!(
-                "field `{}` is empty in every row of one table; it carries no evidence",
-                fv.spec.name
-            ));
-        }
-    }
     clock.lap("reading", &mut timings);
 
     progress.stage("blocking");

@@ -13,3 +13,5 @@ mod link_sample;
 mod match_cmd;
 #[path = "it/reliability_synth.rs"]
 mod reliability_synth;
+#[path = "it/robustness.rs"]
+mod robustness;
