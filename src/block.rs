@@ -309,6 +309,8 @@ mod tests {
             ids: (0..vals.len()).map(|i| format!("{name}{i}")).collect(),
             columns,
             lines: (0..vals.len() as u64).map(|i| i + 2).collect(),
+            bytes: 0,
+            sha256: String::new(),
         }
     }
 

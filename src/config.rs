@@ -5,11 +5,11 @@
 //! suggested; every error names the key. This module never reads a table.
 
 use crate::error::{Error, Result};
-use serde::Deserialize;
+use serde::{Deserialize, Serialize};
 use std::path::{Path, PathBuf};
 
 /// A whole run: two tables, the fields compared, the blocking passes and the decision settings.
-#[derive(Debug, Clone, Deserialize)]
+#[derive(Debug, Clone, Deserialize, Serialize)]
 #[serde(deny_unknown_fields)]
 pub struct Config {
     /// The left table.
@@ -37,7 +37,7 @@ pub struct Config {
 }
 
 /// Where a table is and which column holds its record id.
-#[derive(Debug, Clone, Deserialize)]
+#[derive(Debug, Clone, Deserialize, Serialize)]
 #[serde(deny_unknown_fields)]
 pub struct TableSpec {
     /// Path of the CSV file, relative to the config file.
@@ -53,7 +53,7 @@ pub struct TableSpec {
 }
 
 /// How a field's two values are compared.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize, Serialize)]
 #[serde(rename_all = "kebab-case")]
 pub enum Method {
     /// Agree or disagree.
@@ -69,7 +69,7 @@ pub enum Method {
 }
 
 /// The cleaning applied to a field's values before comparing and blocking.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize, Serialize)]
 #[serde(rename_all = "kebab-case")]
 pub enum Normalize {
     /// Compatibility fold, accents stripped, lower case, punctuation dropped, spaces collapsed.
@@ -85,7 +85,7 @@ pub enum Normalize {
 }
 
 /// One compared field.
-#[derive(Debug, Clone, Deserialize)]
+#[derive(Debug, Clone, Deserialize, Serialize)]
 #[serde(deny_unknown_fields)]
 pub struct FieldSpec {
     /// Label used in outputs and in blocking keys.
@@ -121,7 +121,7 @@ pub struct FieldSpec {
 }
 
 /// One blocking pass.
-#[derive(Debug, Clone, Deserialize)]
+#[derive(Debug, Clone, Deserialize, Serialize)]
 #[serde(deny_unknown_fields)]
 pub struct BlockSpec {
     /// Key parts `<field>:<transform>`, joined into one key.
@@ -135,7 +135,7 @@ pub struct BlockSpec {
 }
 
 /// Decision settings.
-#[derive(Debug, Clone, Deserialize)]
+#[derive(Debug, Clone, Deserialize, Serialize)]
 #[serde(deny_unknown_fields)]
 pub struct LinkSpec {
     /// Links below this confidence are not written (default 0.5).
@@ -153,7 +153,7 @@ pub struct LinkSpec {
 }
 
 /// EM settings.
-#[derive(Debug, Clone, Deserialize)]
+#[derive(Debug, Clone, Deserialize, Serialize)]
 #[serde(deny_unknown_fields)]
 pub struct ModelSpec {
     /// Iteration cap per start (default 500).
@@ -165,7 +165,7 @@ pub struct ModelSpec {
 }
 
 /// Feasibility settings.
-#[derive(Debug, Clone, Deserialize)]
+#[derive(Debug, Clone, Deserialize, Serialize)]
 #[serde(deny_unknown_fields)]
 pub struct AssessSpec {
     /// Margins up to this are "feasible" (default 0.5).

@@ -25,6 +25,10 @@ pub struct Table {
     pub columns: HashMap<String, Vec<String>>,
     /// The 1-based line on which each row starts, for messages.
     pub lines: Vec<u64>,
+    /// Size of the file in bytes.
+    pub bytes: u64,
+    /// SHA-256 of the file's bytes, in hex.
+    pub sha256: String,
 }
 
 impl Table {
@@ -233,6 +237,8 @@ pub fn read_table_from(bytes: &[u8], label: &Path, spec: &ReadSpec) -> Result<Ta
         ids,
         columns,
         lines,
+        bytes: bytes.len() as u64,
+        sha256: sha256_hex(bytes),
     })
 }
 
@@ -263,6 +269,13 @@ impl LineCounter {
         }
         self.line + 1
     }
+}
+
+/// SHA-256 of some bytes, in lower-case hex.
+pub fn sha256_hex(bytes: &[u8]) -> String {
+    use sha2::{Digest, Sha256};
+    let digest = Sha256::digest(bytes);
+    digest.iter().map(|b| format!("{b:02x}")).collect()
 }
 
 fn not_utf8(line: u64, col: &str) -> Error {
@@ -555,6 +568,15 @@ mod tests {
             "{e}"
         );
         assert!(e.contains("latin1"));
+    }
+
+    #[test]
+    fn sha256_of_abc() {
+        // FIPS 180-2, appendix B.1: SHA-256("abc").
+        assert_eq!(
+            sha256_hex(b"abc"),
+            "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad"
+        );
     }
 
     #[test]

@@ -13,5 +13,7 @@ mod link_sample;
 mod match_cmd;
 #[path = "it/reliability_synth.rs"]
 mod reliability_synth;
+#[path = "it/report_html.rs"]
+mod report_html;
 #[path = "it/robustness.rs"]
 mod robustness;

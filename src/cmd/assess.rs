@@ -29,6 +29,7 @@ pub fn run(args: Args) -> Result<ExitCode> {
     let progress = super::StageLines::new(args.quiet);
     let mut prep = pipeline::prepare(config, &progress)?;
     let assessment = pipeline::assess_only(&mut prep, &progress);
+    progress.finish();
     super::print_warnings(&prep.warnings, args.quiet);
     if !args.quiet {
         println!("{}", report::assessment_text(&prep, &assessment));

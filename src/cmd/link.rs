@@ -36,6 +36,7 @@ pub fn run(args: Args) -> Result<ExitCode> {
     let progress = super::StageLines::new(args.quiet);
     let mut prep = pipeline::prepare(config, &progress)?;
     let linkage = pipeline::link(&mut prep, &progress);
+    progress.finish();
     super::print_warnings(&prep.warnings, args.quiet);
     if !args.quiet {
         println!("{}", report::assessment_text(&prep, &linkage.assessment));

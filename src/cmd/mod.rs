@@ -50,30 +50,53 @@ pub fn set_threads(threads: usize) -> Result<()> {
     Ok(())
 }
 
-/// Stage lines on stderr, unless quiet.
+/// Progress on stderr: a spinner per stage (indicatif) when stderr is a terminal, plain stage
+/// lines when it is not, nothing with `--quiet`.
 pub struct StageLines {
     quiet: bool,
     tty: bool,
+    current: std::sync::Mutex<Option<(indicatif::ProgressBar, String, std::time::Instant)>>,
 }
 
 impl StageLines {
-    /// A sink that prints stage names unless `quiet`.
+    /// A progress sink; `quiet` silences it.
     pub fn new(quiet: bool) -> StageLines {
         StageLines {
             quiet,
             tty: std::io::stderr().is_terminal(),
+            current: std::sync::Mutex::new(None),
+        }
+    }
+
+    /// Closes the last stage's spinner.
+    pub fn finish(&self) {
+        if let Ok(mut cur) = self.current.lock() {
+            if let Some((bar, name, start)) = cur.take() {
+                bar.finish_with_message(format!("{name} ({:.1}s)", start.elapsed().as_secs_f64()));
+            }
         }
     }
 }
 
 impl Progress for StageLines {
     fn stage(&self, name: &str) {
-        if !self.quiet {
-            if self.tty {
-                eprintln!("\u{2022} {name}");
-            } else {
-                eprintln!("stage: {name}");
-            }
+        if self.quiet {
+            return;
+        }
+        if !self.tty {
+            eprintln!("stage: {name}");
+            return;
+        }
+        self.finish();
+        let bar = indicatif::ProgressBar::new_spinner();
+        bar.set_style(
+            indicatif::ProgressStyle::with_template("{spinner} {msg} {elapsed}")
+                .unwrap_or_else(|_| indicatif::ProgressStyle::default_spinner()),
+        );
+        bar.set_message(name.to_string());
+        bar.enable_steady_tick(std::time::Duration::from_millis(120));
+        if let Ok(mut cur) = self.current.lock() {
+            *cur = Some((bar, name.to_string(), std::time::Instant::now()));
         }
     }
 }

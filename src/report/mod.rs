@@ -6,6 +6,8 @@
 //! unlinked_right.csv (right). Numbers are printed with fixed rules so that a rerun gives the
 //! same bytes.
 
+pub mod html;
+
 use crate::error::Result;
 use crate::io::OutputSet;
 use crate::pipeline::{level_text, Linkage, Prepared};
@@ -157,6 +159,63 @@ pub struct Summary {
     pub confidence_components: Option<[usize; 3]>,
     /// Warnings, in plain words.
     pub warnings: Vec<String>,
+    /// How the run was made.
+    pub manifest: Manifest,
+}
+
+/// One input file in the manifest.
+#[derive(Debug, Serialize)]
+pub struct InputFile {
+    /// Path as resolved from the config.
+    pub path: String,
+    /// Size in bytes.
+    pub bytes: u64,
+    /// Records read.
+    pub rows: usize,
+    /// SHA-256 of the file.
+    pub sha256: String,
+}
+
+/// The run manifest: enough to repeat the run and check its inputs. `threads` and `seconds`
+/// describe this run only; every other output byte is the same for any thread count.
+#[derive(Debug, Serialize)]
+pub struct Manifest {
+    /// Tool version.
+    pub version: &'static str,
+    /// The config as read (after defaults).
+    pub config: crate::config::Config,
+    /// The left table.
+    pub left: InputFile,
+    /// The right table.
+    pub right: InputFile,
+    /// The seed of the bootstrap and samples.
+    pub seed: u64,
+    /// Worker threads of this run.
+    pub threads: usize,
+    /// Seconds per stage of this run.
+    pub seconds: Vec<(String, f64)>,
+}
+
+fn manifest(prep: &Prepared) -> Manifest {
+    let file = |t: &crate::io::Table| InputFile {
+        path: t.path.display().to_string(),
+        bytes: t.bytes,
+        rows: t.len(),
+        sha256: t.sha256.clone(),
+    };
+    Manifest {
+        version: VERSION,
+        config: prep.config.clone(),
+        left: file(&prep.left),
+        right: file(&prep.right),
+        seed: prep.config.assess.seed,
+        threads: rayon::current_num_threads(),
+        seconds: prep
+            .timings
+            .iter()
+            .map(|(s, t)| (s.clone(), (t * 1000.0).round() / 1000.0))
+            .collect(),
+    }
 }
 
 fn summary(
@@ -268,6 +327,7 @@ fn summary(
         passes,
         confidence_components: comps,
         warnings: prep.warnings.clone(),
+        manifest: manifest(prep),
     }
 }
 
@@ -452,6 +512,8 @@ pub fn write_linkage(dir: &Path, prep: &Prepared, l: &Linkage) -> Result<Vec<Pat
         c.flush()
     })?;
 
+    let page = html::page(prep, l, &review);
+    out.write("report.html", |w| w.write_all(page.as_bytes()))?;
     write_summary(&mut out, &summary(prep, &l.assessment, Some(l), "link"))?;
     out.commit()
 }
