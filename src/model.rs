@@ -367,6 +367,53 @@ pub fn value_frequency(left_counts: &[u32], right_counts: &[u32]) -> ValueFreque
     }
 }
 
+/// Pairs' worth of the value-frequency prior in [`value_frequency_on_candidates`].
+pub const FREQUENCY_PRIOR_PAIRS: f64 = 20.0;
+
+/// Value-frequency weighting estimated on the candidate pairs themselves.
+///
+/// Blocking changes which values false candidates agree on (pairs blocked on a surname code
+/// agree on common surnames far more often than random pairs do), so the random-pair shares
+/// f_L f_R / S of [`value_frequency`] overstate how rare a false agreement is. Here each
+/// value's share among agreeing true pairs and among agreeing false pairs is estimated from
+/// the candidate pairs that agree exactly on it, each counted with its link probability
+/// (true) and one minus it (false), and smoothed towards the frequency-based shares with the
+/// weight of [`FREQUENCY_PRIOR_PAIRS`] pairs, so rare values fall back on their frequencies.
+pub fn value_frequency_on_candidates(
+    left_counts: &[u32],
+    right_counts: &[u32],
+    agreeing: impl Iterator<Item = (u32, f64)>,
+) -> ValueFrequency {
+    let prior = value_frequency(left_counts, right_counts);
+    let nv = left_counts.len();
+    let (mut gm, mut gu) = (vec![0.0; nv], vec![0.0; nv]);
+    for (v, g) in agreeing {
+        if (v as usize) < nv {
+            gm[v as usize] += g;
+            gu[v as usize] += 1.0 - g;
+        }
+    }
+    let (tm, tu): (f64, f64) = (gm.iter().sum(), gu.iter().sum());
+    let both: Vec<usize> = (0..nv)
+        .filter(|&v| left_counts[v] > 0 && right_counts[v] > 0)
+        .collect();
+    let mut adjustment = vec![0.0; nv];
+    let (mut m_shares, mut u_shares) = (Vec::new(), Vec::new());
+    let a = FREQUENCY_PRIOR_PAIRS;
+    for (k, &v) in both.iter().enumerate() {
+        let ms = (gm[v] + a * prior.m_shares[k]) / (tm + a);
+        let us = (gu[v] + a * prior.u_shares[k]) / (tu + a);
+        adjustment[v] = (ms / us).ln();
+        m_shares.push(ms);
+        u_shares.push(us);
+    }
+    ValueFrequency {
+        adjustment,
+        m_shares,
+        u_shares,
+    }
+}
+
 /// A fit that says nothing: flat laws and p = 0, for runs without candidate pairs.
 pub fn null_fit(levels: &[usize]) -> Fit {
     let flat: Vec<Vec<f64>> = levels.iter().map(|&l| vec![1.0 / l as f64; l]).collect();
@@ -483,6 +530,64 @@ pub(crate) mod tests {
     }
 
     #[test]
+    fn value_frequency_weights_match_simulated_ratios() {
+        // Values with Zipf shares (s = 1 over 200 values), the skew of real surnames. True pairs
+        // keep the value with probability 0.9; false pairs draw both values independently.
+        // The weight of agreeing on v, ln(m_agree/u_agree) + adjustment(v), must match the
+        // simulated ln(P(agree on v | true) / P(agree on v | false)) (Fellegi & Sunter 1969
+        // §3; Winkler 1989), within sampling error, for the common values.
+        let mut rng = Rng::new(1989);
+        let nvals = 200;
+        let cum: Vec<f64> = (1..=nvals)
+            .scan(0.0, |a, k| {
+                *a += 1.0 / k as f64;
+                Some(*a)
+            })
+            .collect();
+        let n = 200_000;
+        let (mut lc, mut rc) = (vec![0u32; nvals], vec![0u32; nvals]);
+        let (mut agree_true, mut agree_false) = (vec![0.0; nvals], vec![0.0; nvals]);
+        let (mut n_true, mut n_false) = (0.0, 0.0);
+        for i in 0..n {
+            let a = rng.pick_cumulative(&cum);
+            let truth = i % 2 == 0;
+            let b = if truth && rng.chance(0.9) {
+                a
+            } else {
+                rng.pick_cumulative(&cum)
+            };
+            lc[a] += 1;
+            rc[b] += 1;
+            if truth {
+                n_true += 1.0;
+                if a == b {
+                    agree_true[a] += 1.0;
+                }
+            } else {
+                n_false += 1.0;
+                if a == b {
+                    agree_false[a] += 1.0;
+                }
+            }
+        }
+        let vf = value_frequency(&lc, &rc);
+        let m_agree = agree_true.iter().sum::<f64>() / n_true;
+        let u_agree = agree_false.iter().sum::<f64>() / n_false;
+        let base = (m_agree / u_agree).ln();
+        for v in 0..5 {
+            let want = ((agree_true[v] / n_true) / (agree_false[v] / n_false)).ln();
+            let got = base + vf.adjustment[v];
+            assert!(
+                (got - want).abs() < 0.15,
+                "value rank {}: weight {got}, simulated {want}",
+                v + 1
+            );
+        }
+        // The rarest values agreed on weigh more than the commonest.
+        assert!(vf.adjustment[150] > vf.adjustment[0] + 3.0);
+    }
+
+    #[test]
     fn rare_values_weigh_more() {
         // Fellegi & Sunter 1969 §3: agreement on a rare value is stronger evidence. Uniform
         // values get no adjustment (S = 1/N, f = 1/N).
@@ -494,6 +599,73 @@ pub(crate) mod tests {
         assert!((vf.u_shares.iter().sum::<f64>() - 1.0).abs() < 1e-12);
         let flat = value_frequency(&[3, 3, 3], &[2, 2, 2]);
         assert!(flat.adjustment.iter().all(|a| a.abs() < 1e-12));
+    }
+
+    #[test]
+    fn em_fixed_point_equals_direct_maximum_likelihood() {
+        // Fixtures from tests/reference/em_fixtures.py: the mixture's log-likelihood maximised
+        // directly by scipy.optimize.minimize (BFGS) on the same pattern counts.
+        let doc: serde_json::Value =
+            serde_json::from_str(include_str!("../tests/reference/em_fixtures.json"))
+                .expect("fixtures");
+        for (c, case) in doc["cases"].as_array().expect("cases").iter().enumerate() {
+            let levels: Vec<usize> = case["levels"]
+                .as_array()
+                .unwrap()
+                .iter()
+                .map(|v| v.as_u64().unwrap() as usize)
+                .collect();
+            let patterns: Vec<Vec<u8>> = case["patterns"]
+                .as_array()
+                .unwrap()
+                .iter()
+                .map(|p| {
+                    p.as_array()
+                        .unwrap()
+                        .iter()
+                        .map(|l| {
+                            l.as_i64().map_or(MISSING_LEVEL, |v| {
+                                if v < 0 {
+                                    MISSING_LEVEL
+                                } else {
+                                    v as u8
+                                }
+                            })
+                        })
+                        .collect()
+                })
+                .collect();
+            let counts: Vec<f64> = case["counts"]
+                .as_array()
+                .unwrap()
+                .iter()
+                .map(|v| v.as_f64().unwrap())
+                .collect();
+            let pc = PatternCounts {
+                levels,
+                patterns,
+                counts,
+            };
+            let f = fit(
+                &pc,
+                &EmOptions {
+                    max_iterations: 100_000,
+                    tolerance: 1e-15,
+                    p_hint: 0.1,
+                },
+            );
+            let close = |a: f64, b: &serde_json::Value, what: &str| {
+                let b = b.as_f64().unwrap();
+                assert!((a - b).abs() < 1e-4, "case {c} {what}: EM {a}, direct {b}");
+            };
+            close(f.p, &case["p"], "p");
+            for k in 0..f.m.len() {
+                for l in 0..f.m[k].len() {
+                    close(f.m[k][l], &case["m"][k][l], &format!("m[{k}][{l}]"));
+                    close(f.u[k][l], &case["u"][k][l], &format!("u[{k}][{l}]"));
+                }
+            }
+        }
     }
 
     #[test]

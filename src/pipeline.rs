@@ -52,6 +52,8 @@ pub struct Prepared {
     pub counts: PatternCounts,
     /// The fitted laws.
     pub fit: Fit,
+    /// The laws from plain EM, before the one-to-one refinement.
+    pub plain_fit: Fit,
     /// Value-frequency tables of fields with `frequency = true`.
     pub frequency: Vec<Option<ValueFrequency>>,
     /// Per pair: the Fellegi–Sunter weight (sum of log-likelihood ratios).
@@ -268,17 +270,13 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
         }
         f
     };
-    let frequency: Vec<Option<ValueFrequency>> = records
-        .fields
-        .iter()
-        .map(|fv| {
-            fv.spec
-                .frequency
-                .then(|| model::value_frequency(&fv.left_counts, &fv.right_counts))
-        })
-        .collect();
-    let (mut weight, mut theta) = pair_weights(&records, &cands, &comparison, &fit, &frequency);
+    // The fit and its one-to-one refinement use field-level weights; value-frequency tables
+    // are then estimated from the refined link probabilities of the candidate pairs.
+    let no_frequency: Vec<Option<ValueFrequency>> = vec![None; records.fields.len()];
+    let (_, mut theta) = pair_weights(&records, &cands, &comparison, &fit, &no_frequency);
+    let plain_fit = fit.clone();
     let mut fit = fit;
+    let mut link_prob: Vec<f64> = theta.iter().map(|&t| confidence::pairwise(t)).collect();
     if !cands.is_empty() {
         for _ in 0..ONE_TO_ONE_ROUNDS {
             let marg = confidence::marginals(
@@ -290,9 +288,24 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
             );
             let gamma = pattern_shares(&comparison, &counts, &marg.p);
             fit = model::fit_from_shares(&counts, &gamma, &fit);
-            (weight, theta) = pair_weights(&records, &cands, &comparison, &fit, &frequency);
+            (_, theta) = pair_weights(&records, &cands, &comparison, &fit, &no_frequency);
+            link_prob = marg.p;
         }
     }
+    let frequency: Vec<Option<ValueFrequency>> = records
+        .fields
+        .iter()
+        .enumerate()
+        .map(|(k, fv)| {
+            fv.spec.frequency.then(|| {
+                let agreeing = (0..cands.len())
+                    .filter(|&i| comparison.level(comparison.codes[i], k) == 0)
+                    .map(|i| (fv.left[cands.left[i] as usize], link_prob[i]));
+                model::value_frequency_on_candidates(&fv.left_counts, &fv.right_counts, agreeing)
+            })
+        })
+        .collect();
+    let (weight, theta) = pair_weights(&records, &cands, &comparison, &fit, &frequency);
     let names: Vec<String> = config.field.iter().map(|f| f.name.clone()).collect();
     let split: Vec<Option<f64>> = frequency
         .iter()
@@ -332,6 +345,7 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
         comparison,
         counts,
         fit,
+        plain_fit,
         frequency,
         weight,
         theta,
@@ -452,7 +466,9 @@ fn match_and_assess(prep: &mut Prepared, progress: &dyn Progress) -> (Matching, 
         &prep.cands.left,
         &prep.cands.right,
         &matching.chosen,
-        &prep.fit,
+        // The plain EM laws: their true-pair law still holds near-matches (household members),
+        // so the forecast errs high rather than low; the refined laws are too clean for it.
+        &prep.plain_fit,
         &ForecastOptions {
             replicates: prep.config.assess.replicates,
             seed: prep.config.assess.seed,

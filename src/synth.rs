@@ -361,7 +361,6 @@ left = "surname"
 right = "last_name"
 method = "jaro-winkler"
 bands = [0.94, 0.85]
-frequency = true
 
 [[field]]
 name = "birth"

@@ -7,6 +7,11 @@
 //! to their planted partner. Replicates are seeded and independent; the forecast is their mean,
 //! with the 2.5% and 97.5% points of the replicate rates as the interval.
 //!
+//! The laws drawn from are the plain EM fit, before the one-to-one refinement: the refined
+//! true-pair law leaves out true pairs that lose to a rival, so it is too clean and the
+//! forecast would err low; the plain law still holds some near-matches, so it errs high,
+//! which is the safer side for a feasibility check.
+//!
 //! Very large graphs are subsampled by whole connected components of the candidate graph (so
 //! no record loses any of its candidates) until `max_pairs` pairs are reached.
 
