@@ -71,6 +71,8 @@ pub struct Pass {
     pub parts: Vec<KeyPart>,
     /// Largest number of pairs one block may produce.
     pub max_block_pairs: u64,
+    /// Sorted-neighbourhood window, when the pass is one.
+    pub window: Option<usize>,
 }
 
 /// Builds the candidate pairs of all passes; returns them with per-pass statistics.
@@ -137,6 +139,7 @@ fn transform_value(fv: &FieldValues, v: u32, t: Transform) -> String {
             .split_whitespace()
             .filter_map(|w| w.chars().next())
             .collect(),
+        Transform::Nysiis => text::nysiis(s),
         Transform::SortedTokens => {
             let mut w: Vec<&str> = s.split_whitespace().collect();
             w.sort_unstable();
@@ -242,8 +245,47 @@ fn group(keys: &[u32], n_keys: usize) -> (Vec<u32>, Vec<u32>) {
     (start, members)
 }
 
+/// Sorted neighbourhood (Hernandez & Stolfo 1995): both tables' records with a key, sorted
+/// together by (key text, side, record index); each record is paired with the records of the
+/// other table among the next `window - 1` places. Cost O(n log n + n w).
+fn sorted_neighbourhood(keys: &Keys, window: usize) -> Vec<u64> {
+    let mut merged: Vec<(&str, u8, u32)> = Vec::with_capacity(keys.left.len() + keys.right.len());
+    for (side, ks) in [(0u8, &keys.left), (1u8, &keys.right)] {
+        for (i, &k) in ks.iter().enumerate() {
+            if k != MISSING {
+                merged.push((keys.text[k as usize].as_str(), side, i as u32));
+            }
+        }
+    }
+    merged.par_sort_unstable();
+    let mut pairs = Vec::new();
+    for i in 0..merged.len() {
+        for j in i + 1..(i + window).min(merged.len()) {
+            let (a, b) = (merged[i], merged[j]);
+            if a.1 != b.1 {
+                let (l, r) = if a.1 == 0 { (a.2, b.2) } else { (b.2, a.2) };
+                pairs.push(((l as u64) << 32) | r as u64);
+            }
+        }
+    }
+    pairs.par_sort_unstable();
+    pairs
+}
+
 fn run_pass(records: &Records, pass: &Pass) -> (Vec<u64>, PassStats) {
     let keys = build_keys(records, &pass.parts);
+    if let Some(w) = pass.window {
+        let pairs = sorted_neighbourhood(&keys, w);
+        let stats = PassStats {
+            name: pass.name.clone(),
+            pairs: pairs.len() as u64,
+            blocks: 0,
+            largest_block: 0,
+            pairs_in_large_blocks: 0,
+            skipped: Vec::new(),
+        };
+        return (pairs, stats);
+    }
     let n_keys = keys.text.len();
     let (ls, lm) = group(&keys.left, n_keys);
     let (rs, rm) = group(&keys.right, n_keys);
@@ -337,6 +379,7 @@ mod tests {
                 .map(|&(field, transform)| KeyPart { field, transform })
                 .collect(),
             max_block_pairs: DEFAULT_MAX_BLOCK_PAIRS,
+            window: None,
         }
     }
 
@@ -367,6 +410,43 @@ mod tests {
                 }
             }
             let got: Vec<(u32, u32, u16)> = (0..c.len()).map(|k| (c.left[k], c.right[k], c.passes[k])).collect();
+            prop_assert_eq!(got, want);
+        }
+    }
+
+    proptest! {
+        // Oracle for the sorted-neighbourhood window: sort all records by (key, side, index)
+        // by brute force and keep every cross-table pair less than w places apart
+        // (Hernandez & Stolfo 1995).
+        #[test]
+        fn sorted_neighbourhood_equals_brute_force(
+            l in proptest::collection::vec(0u8..6, 0..12),
+            r in proptest::collection::vec(0u8..6, 0..12),
+            w in 2usize..5,
+        ) {
+            let names = ["", "ab", "ac", "bd", "ba", "ca"];
+            let lv: Vec<(&str, &str)> = l.iter().map(|&a| (names[a as usize], "x")).collect();
+            let rv: Vec<(&str, &str)> = r.iter().map(|&a| (names[a as usize], "x")).collect();
+            let recs = crate::records::build(&table("l", &lv), &table("r", &rv), &[spec("a"), spec("b")]).unwrap();
+            let mut p = pass(&[(0, Transform::Exact)]);
+            p.window = Some(w);
+            let (c, _) = candidates(&recs, &[p]);
+            let mut order: Vec<(&str, u8, usize)> = Vec::new();
+            for (i, a) in lv.iter().enumerate() { if !a.0.is_empty() { order.push((a.0, 0, i)); } }
+            for (j, b) in rv.iter().enumerate() { if !b.0.is_empty() { order.push((b.0, 1, j)); } }
+            order.sort();
+            let pos = |side: u8, i: usize| order.iter().position(|o| o.1 == side && o.2 == i);
+            let mut want = Vec::new();
+            for i in 0..lv.len() {
+                for j in 0..rv.len() {
+                    if let (Some(x), Some(y)) = (pos(0, i), pos(1, j)) {
+                        if x.abs_diff(y) < w {
+                            want.push((i as u32, j as u32));
+                        }
+                    }
+                }
+            }
+            let got: Vec<(u32, u32)> = (0..c.len()).map(|k| (c.left[k], c.right[k])).collect();
             prop_assert_eq!(got, want);
         }
     }

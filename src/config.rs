@@ -31,6 +31,9 @@ pub struct Config {
     /// Feasibility settings.
     #[serde(default)]
     pub assess: AssessSpec,
+    /// Extra blocking schemes for `dovetail tune`.
+    #[serde(default)]
+    pub scheme: Vec<SchemeSpec>,
     /// The folder the config file is in; relative paths are taken from here.
     #[serde(skip)]
     pub base_dir: PathBuf,
@@ -132,6 +135,21 @@ pub struct BlockSpec {
     /// Largest number of pairs one block may produce; bigger blocks are skipped with a warning.
     #[serde(default)]
     pub max_block_pairs: Option<u64>,
+    /// Makes the pass a sorted-neighbourhood pass (Hernandez & Stolfo 1995): both tables
+    /// sorted together by the key, each record paired with the other table's records among
+    /// the next `window - 1` places.
+    #[serde(default)]
+    pub window: Option<usize>,
+}
+
+/// An extra blocking scheme for `dovetail tune` to compare.
+#[derive(Debug, Clone, Deserialize, Serialize)]
+#[serde(deny_unknown_fields)]
+pub struct SchemeSpec {
+    /// Label in the tune table.
+    pub name: String,
+    /// The scheme's passes.
+    pub block: Vec<BlockSpec>,
 }
 
 /// Decision settings.
@@ -275,6 +293,8 @@ pub enum Transform {
     Initials,
     /// Words sorted alphabetically.
     SortedTokens,
+    /// NYSIIS name code (Taft 1970).
+    Nysiis,
 }
 
 /// One part of a blocking key: a field index and a transform.
@@ -286,7 +306,10 @@ pub struct KeyPart {
     pub transform: Transform,
 }
 
-const TOP_KEYS: &[&str] = &["left", "right", "field", "block", "link", "model", "assess"];
+const TOP_KEYS: &[&str] = &[
+    "left", "right", "field", "block", "link", "model", "assess", "scheme",
+];
+const SCHEME_KEYS: &[&str] = &["name", "block"];
 const TABLE_KEYS: &[&str] = &["path", "id", "encoding", "delimiter"];
 const FIELD_KEYS: &[&str] = &[
     "name",
@@ -300,7 +323,7 @@ const FIELD_KEYS: &[&str] = &[
     "drop_tokens",
     "date_order",
 ];
-const BLOCK_KEYS: &[&str] = &["keys", "name", "max_block_pairs"];
+const BLOCK_KEYS: &[&str] = &["keys", "name", "max_block_pairs", "window"];
 const LINK_KEYS: &[&str] = &[
     "min_confidence",
     "target_precision",
@@ -328,6 +351,7 @@ const TRANSFORMS: &[&str] = &[
     "digits:N",
     "initials",
     "sorted-tokens",
+    "nysiis",
 ];
 
 /// The valid key nearest to `key` by Levenshtein distance, if any is reasonably close.
@@ -374,6 +398,20 @@ fn check_keys(doc: &toml::Value) -> Result<()> {
         if let Some(toml::Value::Array(items)) = t.get(name) {
             for (i, item) in items.iter().enumerate() {
                 check_table(item, &format!("{name}[{}].", i + 1), valid)?;
+            }
+        }
+    }
+    if let Some(toml::Value::Array(items)) = t.get("scheme") {
+        for (i, item) in items.iter().enumerate() {
+            check_table(item, &format!("scheme[{}].", i + 1), SCHEME_KEYS)?;
+            if let Some(toml::Value::Array(blocks)) = item.get("block") {
+                for (j, b) in blocks.iter().enumerate() {
+                    check_table(
+                        b,
+                        &format!("scheme[{}].block[{}].", i + 1, j + 1),
+                        BLOCK_KEYS,
+                    )?;
+                }
             }
         }
     }
@@ -458,20 +496,25 @@ impl Config {
 
     /// Parses every pass's keys into field indices and transforms.
     pub fn passes(&self) -> Result<Vec<Vec<KeyPart>>> {
-        self.block
+        self.parse_blocks(&self.block, "block")
+    }
+
+    /// Parses the keys of a list of passes; `at` names the list in errors.
+    pub fn parse_blocks(&self, blocks: &[BlockSpec], at: &str) -> Result<Vec<Vec<KeyPart>>> {
+        blocks
             .iter()
             .enumerate()
             .map(|(i, b)| {
+                let here = format!("{at}[{}].keys", i + 1);
                 b.keys
                     .iter()
-                    .map(|k| self.parse_key(k, i))
+                    .map(|k| self.parse_key(k, &here))
                     .collect::<Result<Vec<_>>>()
             })
             .collect()
     }
 
-    fn parse_key(&self, key: &str, pass: usize) -> Result<KeyPart> {
-        let at = format!("block[{}].keys", pass + 1);
+    fn parse_key(&self, key: &str, at: &str) -> Result<KeyPart> {
         let (name, transform) = match key.split_once(':') {
             Some((n, t)) => (n, t),
             None => (key, "exact"),
@@ -533,8 +576,23 @@ impl Config {
             if b.keys.is_empty() {
                 return Err(Error::config(format!("`block[{}].keys` is empty", i + 1)));
             }
+            if b.window.is_some_and(|w| w < 2) {
+                return Err(Error::config(format!(
+                    "`block[{}].window` must be at least 2",
+                    i + 1
+                )));
+            }
         }
         self.passes()?;
+        for (i, sc) in self.scheme.iter().enumerate() {
+            if sc.block.is_empty() || sc.block.iter().any(|b| b.keys.is_empty()) {
+                return Err(Error::config(format!(
+                    "`scheme[{}]`: every scheme needs passes with keys",
+                    i + 1
+                )));
+            }
+            self.parse_blocks(&sc.block, &format!("scheme[{}].block", i + 1))?;
+        }
         let l = &self.link;
         if !(0.0..=1.0).contains(&l.min_confidence) {
             return Err(Error::config("`link.min_confidence` must be within [0, 1]"));
@@ -625,6 +683,7 @@ pub fn parse_transform(t: &str) -> Option<Transform> {
         ("digits", Some(_)) => Transform::DigitsN(n()?),
         ("initials", None) => Transform::Initials,
         ("sorted-tokens", None) => Transform::SortedTokens,
+        ("nysiis", None) => Transform::Nysiis,
         _ => return None,
     })
 }

@@ -22,5 +22,6 @@ pub mod report;
 pub mod rng;
 pub mod synth;
 pub mod text;
+pub mod tune;
 
 pub use error::{Error, ErrorKind, Result};

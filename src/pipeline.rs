@@ -138,6 +138,33 @@ fn read_side(cfg: &Config, left: bool) -> Result<Table> {
     io::read_table(&cfg.resolve(&spec.path), &read)
 }
 
+/// Ready-to-run passes from a list of pass specs (`at` names the list in errors).
+pub fn passes_from(
+    config: &Config,
+    blocks: &[crate::config::BlockSpec],
+    at: &str,
+) -> Result<Vec<Pass>> {
+    let specs = config.parse_blocks(blocks, at)?;
+    if specs.len() > block::MAX_PASSES {
+        return Err(Error::config(format!(
+            "{} blocking passes given; at most {} are supported",
+            specs.len(),
+            block::MAX_PASSES
+        )));
+    }
+    Ok(specs
+        .into_iter()
+        .zip(blocks)
+        .enumerate()
+        .map(|(i, (parts, b))| Pass {
+            name: b.name.clone().unwrap_or_else(|| format!("pass {}", i + 1)),
+            parts,
+            max_block_pairs: b.max_block_pairs.unwrap_or(block::DEFAULT_MAX_BLOCK_PAIRS),
+            window: b.window,
+        })
+        .collect())
+}
+
 /// Leaves out every field that is empty in every row of one table (it could carry no
 /// evidence and would only confuse the fit), and every blocking pass that uses one, with a
 /// warning for each.
@@ -205,24 +232,7 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
     clock.lap("reading", &mut timings);
 
     progress.stage("blocking");
-    let specs = config.passes()?;
-    if specs.len() > block::MAX_PASSES {
-        return Err(Error::config(format!(
-            "{} blocking passes given; at most {} are supported",
-            specs.len(),
-            block::MAX_PASSES
-        )));
-    }
-    let passes: Vec<Pass> = specs
-        .into_iter()
-        .zip(&config.block)
-        .enumerate()
-        .map(|(i, (parts, b))| Pass {
-            name: b.name.clone().unwrap_or_else(|| format!("pass {}", i + 1)),
-            parts,
-            max_block_pairs: b.max_block_pairs.unwrap_or(block::DEFAULT_MAX_BLOCK_PAIRS),
-        })
-        .collect();
+    let passes = passes_from(&config, &config.block, "block")?;
     let (cands, pass_stats) = block::candidates(&records, &passes);
     for s in &pass_stats {
         for (key, size) in &s.skipped {
@@ -374,7 +384,7 @@ fn pattern_shares(comparison: &Comparison, counts: &PatternCounts, p: &[f64]) ->
 
 /// Per pair: the weight (sum of per-field log-likelihood ratios, value-frequency adjusted) and
 /// theta = weight + ln(p / (1 - p)).
-fn pair_weights(
+pub fn pair_weights(
     records: &Records,
     cands: &Candidates,
     comparison: &Comparison,

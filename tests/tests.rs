@@ -17,3 +17,5 @@ mod reliability_synth;
 mod report_html;
 #[path = "it/robustness.rs"]
 mod robustness;
+#[path = "it/tune_synth.rs"]
+mod tune_synth;

@@ -5,6 +5,7 @@ mod assess;
 mod link;
 mod match_pairs;
 mod synth;
+mod tune;
 
 use clap::{Parser, Subcommand};
 use dovetail::pipeline::Progress;
@@ -27,6 +28,7 @@ enum Command {
     Assess(assess::Args),
     Match(match_pairs::Args),
     Synth(synth::Args),
+    Tune(tune::Args),
 }
 
 /// Runs the chosen subcommand.
@@ -36,6 +38,33 @@ pub fn run(cli: Cli) -> Result<ExitCode> {
         Command::Assess(a) => assess::run(a),
         Command::Match(a) => match_pairs::run(a),
         Command::Synth(a) => synth::run(a),
+        Command::Tune(a) => tune::run(a),
+    }
+}
+
+/// Options every config-driven subcommand takes.
+#[derive(Debug, clap::Args)]
+pub struct RunArgs {
+    /// The run's config file (TOML); table paths in it are relative to it.
+    #[arg(long)]
+    pub config: std::path::PathBuf,
+    /// Output folder.
+    #[arg(long, default_value = "dovetail-out")]
+    pub out: std::path::PathBuf,
+    /// Worker threads (0 = one per core); outputs do not depend on it.
+    #[arg(long, default_value_t = 0)]
+    pub threads: usize,
+    /// Print nothing but errors.
+    #[arg(long)]
+    pub quiet: bool,
+}
+
+impl RunArgs {
+    /// Sets the threads, reads the config and starts the progress lines.
+    pub fn start(&self) -> Result<(dovetail::config::Config, StageLines)> {
+        set_threads(self.threads)?;
+        let config = dovetail::config::Config::from_path(&self.config)?;
+        Ok((config, StageLines::new(self.quiet)))
     }
 }
 

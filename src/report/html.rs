@@ -345,8 +345,81 @@ svg { max-width:100%; height:auto; display:block; }
 @media print { body { background:#fff; } header { border-bottom:2px solid #000; } section { break-inside: avoid; } .tile, .verdict, .caution, table { background:#fff; } }
 "#;
 
-/// The whole page.
-pub fn page(prep: &Prepared, l: &Linkage, review: &[usize]) -> String {
+/// One scheme of an earlier `dovetail tune` run, as read back from tune.csv.
+#[derive(Debug, Clone, serde::Deserialize)]
+pub struct TuneRow {
+    /// Scheme label.
+    pub scheme: String,
+    /// Candidate pairs.
+    pub pairs: usize,
+    /// The false degree.
+    pub d: f64,
+    /// Estimated pair completeness.
+    pub completeness: f64,
+    /// Forecast error, when computed.
+    pub forecast_error: Option<f64>,
+    /// completeness x (1 - forecast error).
+    pub expected_correct: f64,
+}
+
+/// Completeness and expected correct links per scheme: the blocking trade-off.
+fn tune_chart(rows: &[TuneRow]) -> String {
+    svg(640, 280, |root| {
+        let n = rows.len().max(1);
+        let mut c = ChartBuilder::on(root)
+            .margin(12)
+            .x_label_area_size(36)
+            .y_label_area_size(56)
+            .build_cartesian_2d(0f64..n as f64, 0f64..105f64)?;
+        c.configure_mesh()
+            .disable_x_mesh()
+            .x_labels(n * 2 + 1)
+            .x_label_formatter(&|x| {
+                let k = x.floor() as usize;
+                if (x - k as f64 - 0.5).abs() < 1e-6 {
+                    format!("scheme {}", k + 1)
+                } else {
+                    String::new()
+                }
+            })
+            .y_desc("% of true pairs")
+            .label_style(font(12))
+            .axis_desc_style(font(13))
+            .draw()?;
+        c.draw_series(rows.iter().enumerate().map(|(k, r)| {
+            Rectangle::new(
+                [
+                    (k as f64 + 0.1, 0.0),
+                    (k as f64 + 0.48, r.completeness * 100.0),
+                ],
+                TEAL.filled(),
+            )
+        }))?
+        .label("pair completeness")
+        .legend(|(x, y)| Rectangle::new([(x, y - 5), (x + 14, y + 5)], TEAL.filled()));
+        c.draw_series(rows.iter().enumerate().map(|(k, r)| {
+            Rectangle::new(
+                [
+                    (k as f64 + 0.52, 0.0),
+                    (k as f64 + 0.9, r.expected_correct * 100.0),
+                ],
+                INK.filled(),
+            )
+        }))?
+        .label("expected linked correctly")
+        .legend(|(x, y)| Rectangle::new([(x, y - 5), (x + 14, y + 5)], INK.filled()));
+        c.configure_series_labels()
+            .position(SeriesLabelPosition::LowerRight)
+            .background_style(PAPER)
+            .border_style(SAND)
+            .label_font(font(12))
+            .draw()?;
+        Ok(())
+    })
+}
+
+/// The whole page; `tune` holds an earlier `dovetail tune` run's table, if any.
+pub fn page(prep: &Prepared, l: &Linkage, review: &[usize], tune: Option<&[TuneRow]>) -> String {
     let a = &l.assessment;
     let mut h = String::new();
     let verdict = a.verdict.as_str();
@@ -480,6 +553,26 @@ pub fn page(prep: &Prepared, l: &Linkage, review: &[usize]) -> String {
         true,
     ));
     let _ = write!(h, "</section>");
+
+    if let Some(rows) = tune.filter(|r| !r.is_empty()) {
+        let _ = write!(h, "<section><h2>Blocking trade-off (from dovetail tune)</h2><p>Looser blocking keeps more true pairs but gives each record more false candidates; the dark bars are what is left after the forecast mismatches.</p>");
+        h.push_str(&tune_chart(rows));
+        let _ = write!(h, "<table><tr><th>scheme</th><th>name</th><th>pairs</th><th>d</th><th>completeness</th><th>forecast error</th><th>expected correct</th></tr>");
+        for (k, r) in rows.iter().enumerate() {
+            let _ = write!(
+                h,
+                "<tr><td class=\"num\">{}</td><td>{}</td><td class=\"num\">{}</td><td class=\"num\">{:.3}</td><td class=\"num\">{:.1}%</td><td class=\"num\">{}</td><td class=\"num\">{:.1}%</td></tr>",
+                k + 1,
+                escape(&r.scheme),
+                r.pairs,
+                r.d,
+                r.completeness * 100.0,
+                r.forecast_error.map_or("-".to_string(), |e| format!("{:.2}%", e * 100.0)),
+                r.expected_correct * 100.0
+            );
+        }
+        let _ = write!(h, "</table></section>");
+    }
 
     let _ = write!(h, "<section><h2>First pairs for clerical review</h2>");
     if review.is_empty() {

@@ -345,6 +345,14 @@ pub fn write_assessment(dir: &Path, prep: &Prepared, a: &Assessment) -> Result<V
     out.commit()
 }
 
+/// The table of an earlier `dovetail tune --out DIR`, when DIR/tune.csv is there and reads.
+fn read_tune(dir: &Path) -> Option<Vec<html::TuneRow>> {
+    let mut r = csv::Reader::from_path(dir.join("tune.csv")).ok()?;
+    r.deserialize()
+        .collect::<std::result::Result<Vec<html::TuneRow>, _>>()
+        .ok()
+}
+
 /// Why a record stays unlinked.
 fn unlinked_reason(has_candidate: bool, in_optimum: bool) -> &'static str {
     match (has_candidate, in_optimum) {
@@ -512,7 +520,8 @@ pub fn write_linkage(dir: &Path, prep: &Prepared, l: &Linkage) -> Result<Vec<Pat
         c.flush()
     })?;
 
-    let page = html::page(prep, l, &review);
+    let tune = read_tune(dir);
+    let page = html::page(prep, l, &review, tune.as_deref());
     out.write("report.html", |w| w.write_all(page.as_bytes()))?;
     write_summary(&mut out, &summary(prep, &l.assessment, Some(l), "link"))?;
     out.commit()

@@ -1,0 +1,94 @@
+//! `dovetail tune`: its pair-completeness estimates against the generator's truth (issue 7).
+
+use crate::common::*;
+use dovetail::config::Config;
+use dovetail::pipeline::{self, Silent};
+use dovetail::synth::{generate, SynthOptions};
+use dovetail::{block, tune};
+use std::collections::HashSet;
+
+#[test]
+fn completeness_estimates_match_the_truth() {
+    let dir = tempfile::tempdir().unwrap();
+    let s = generate(&SynthOptions {
+        rows: 2000,
+        overlap: 0.7,
+        noise: 0.4,
+        seed: 12,
+    });
+    std::fs::write(dir.path().join("left.csv"), &s.left_csv).unwrap();
+    std::fs::write(dir.path().join("right.csv"), &s.right_csv).unwrap();
+    let config = Config::from_text(&s.config_toml, dir.path()).unwrap();
+    let prep = pipeline::prepare(config, &Silent).unwrap();
+    let cfg = &prep.config;
+    let text = |keys: &[&str], window: Option<usize>| dovetail::config::BlockSpec {
+        keys: keys.iter().map(|k| k.to_string()).collect(),
+        name: None,
+        max_block_pairs: None,
+        window,
+    };
+    let schemes: Vec<(String, Vec<block::Pass>)> = [
+        (
+            "surname sound + year",
+            vec![text(&["surname:soundex", "birth:year"], None)],
+        ),
+        (
+            "postcode + initial",
+            vec![text(&["postcode", "given:first:1"], None)],
+        ),
+        ("both", cfg.block.clone()),
+        ("surname nysiis", vec![text(&["surname:nysiis"], None)]),
+        ("sorted surname, w 8", vec![text(&["surname"], Some(8))]),
+        ("birth year-month", vec![text(&["birth:year-month"], None)]),
+    ]
+    .into_iter()
+    .map(|(n, b)| {
+        (
+            n.to_string(),
+            pipeline::passes_from(cfg, &b, "scheme").unwrap(),
+        )
+    })
+    .collect();
+    let rows = tune::evaluate(
+        &prep,
+        &schemes,
+        &tune::TuneOptions {
+            sample: 2000,
+            seed: 1,
+            replicates: 2,
+        },
+    );
+    let truth: HashSet<(String, String)> = s
+        .truth_csv
+        .lines()
+        .skip(1)
+        .map(|l| {
+            let (a, b) = l.split_once(',').unwrap();
+            (a.to_string(), b.to_string())
+        })
+        .collect();
+    for ((name, passes), row) in schemes.iter().zip(&rows) {
+        let (c, _) = block::candidates(&prep.records, passes);
+        let found = (0..c.len())
+            .filter(|&i| {
+                let pair = (
+                    prep.records.left_ids[c.left[i] as usize].clone(),
+                    prep.records.right_ids[c.right[i] as usize].clone(),
+                );
+                truth.contains(&pair)
+            })
+            .count();
+        let actual = found as f64 / truth.len() as f64;
+        eprintln!(
+            "{name}: estimated completeness {:.4}, true {actual:.4}",
+            row.completeness
+        );
+        // The issue's tolerance: within 0.03 of the true completeness, for every scheme.
+        assert!(
+            (row.completeness - actual).abs() <= 0.03,
+            "{name}: estimated {}, true {actual}",
+            row.completeness
+        );
+    }
+    let _ = root();
+}
