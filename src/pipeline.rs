@@ -288,14 +288,17 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
     let mut fit = fit;
     let mut link_prob: Vec<f64> = theta.iter().map(|&t| confidence::pairwise(t)).collect();
     if !cands.is_empty() {
+        // The refinement only needs shares per pattern, so a looser BP serves; the reported
+        // confidences use the default settings.
+        let rough = BpOptions {
+            max_iterations: 40,
+            damping: 0.5,
+            tolerance: 1e-4,
+            theta_cutoff: -9.0,
+        };
         for _ in 0..ONE_TO_ONE_ROUNDS {
-            let marg = confidence::marginals(
-                records.n_left(),
-                &cands.left,
-                &cands.right,
-                &theta,
-                &BpOptions::default(),
-            );
+            let marg =
+                confidence::marginals(records.n_left(), &cands.left, &cands.right, &theta, &rough);
             let gamma = pattern_shares(&comparison, &counts, &marg.p);
             fit = model::fit_from_shares(&counts, &gamma, &fit);
             (_, theta) = pair_weights(&records, &cands, &comparison, &fit, &no_frequency);
@@ -366,7 +369,7 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
 }
 
 /// Rounds of the one-to-one refinement of the fit (see [`model::fit_from_shares`]).
-pub const ONE_TO_ONE_ROUNDS: usize = 5;
+pub const ONE_TO_ONE_ROUNDS: usize = 3;
 
 /// Mean link probability of the pairs of each pattern, in the order of `counts`.
 fn pattern_shares(comparison: &Comparison, counts: &PatternCounts, p: &[f64]) -> Vec<f64> {
@@ -471,13 +474,12 @@ fn match_and_assess(prep: &mut Prepared, progress: &dyn Progress) -> (Matching, 
         matching::max_weight_matching(n_left, &prep.cands.left, &prep.cands.right, &prep.theta);
     clock.lap("matching", &mut prep.timings);
     progress.stage("assessing");
-    let fc = forecast::forecast(
+    let fc = forecast::bracketed(
         n_left,
         &prep.cands.left,
         &prep.cands.right,
         &matching.chosen,
-        // The plain EM laws: their true-pair law still holds near-matches (household members),
-        // so the forecast errs high rather than low; the refined laws are too clean for it.
+        &prep.fit,
         &prep.plain_fit,
         &ForecastOptions {
             replicates: prep.config.assess.replicates,

@@ -30,6 +30,10 @@ const SURNAME_TAILS: &[&str] = &[
     "by", "den", "field", "ford", "gate", "ham", "holt", "ley", "mere", "ridge", "stow", "well",
     "wick", "worth", "acre", "bourne", "combe", "dale",
 ];
+/// Middle syllables that multiply the surname stock for large populations.
+const SURNAME_MIDDLES: &[&str] = &[
+    "", "a", "en", "er", "in", "on", "el", "ar", "is", "um", "ot", "ig", "ed", "ow", "ul", "ith",
+];
 const TOWNS: &[(&str, &str)] = &[
     ("Kessry Bridge", "KSB"),
     ("Orlow", "ORW"),
@@ -142,13 +146,17 @@ fn phone(rng: &mut Rng) -> String {
 fn population(rng: &mut Rng, n: usize) -> Vec<Person> {
     let mut surnames: Vec<String> = Vec::new();
     for h in SURNAME_HEADS {
-        for t in SURNAME_TAILS {
-            surnames.push(format!("{h}{t}"));
+        for m in SURNAME_MIDDLES {
+            for t in SURNAME_TAILS {
+                surnames.push(format!("{h}{m}{t}"));
+            }
         }
     }
     rng.shuffle(&mut surnames);
-    surnames.truncate(500);
-    let zipf = zipf_cumulative(surnames.len(), 1.0);
+    // The stock grows with the population, as real surname stocks do; Zipf shares with
+    // exponent 0.75 make the commonest surname a share of one to a few in a hundred.
+    surnames.truncate((n / 4).clamp(500, surnames.len()));
+    let zipf = zipf_cumulative(surnames.len(), 0.75);
     let mut people = Vec::with_capacity(n + 6);
     while people.len() < n {
         let surname = surnames[rng.pick_cumulative(&zipf)].clone();
@@ -244,6 +252,9 @@ fn rerecord(rng: &mut Rng, p: &Person, noise: f64) -> Person {
             1 => (y, m, if d < 28 { d + 1 } else { d - 1 }),
             _ => (y, if m < 12 { m + 1 } else { m - 1 }, d.min(28)),
         };
+        // A slip still gives a calendar date (a leap day moved to another year, say).
+        let (y, m, d) = q.birth;
+        q.birth = (y, m, d.min(crate::text::days_in_month(y, m)));
     }
     if rng.chance(0.3 * noise) {
         q.town = rng.below(TOWNS.len());

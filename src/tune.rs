@@ -153,11 +153,12 @@ pub fn evaluate(
                 &prep.frequency,
             );
             let m = matching::max_weight_matching(nl, &cands.left, &cands.right, &theta);
-            let fc = forecast::forecast(
+            let fc = forecast::bracketed(
                 nl,
                 &cands.left,
                 &cands.right,
                 &m.chosen,
+                &prep.fit,
                 &prep.plain_fit,
                 &ForecastOptions {
                     replicates: opts.replicates,
