@@ -142,6 +142,12 @@ fn phone(rng: &mut Rng) -> String {
     )
 }
 
+/// House numbers per street: the region grows with its population, so that a postcode (a
+/// street sector and a run of ten house numbers) keeps holding a few households.
+fn houses(population: usize) -> usize {
+    180 * (population / 50_000).max(1)
+}
+
 /// Builds households until `n` people exist.
 fn population(rng: &mut Rng, n: usize) -> Vec<Person> {
     let mut surnames: Vec<String> = Vec::new();
@@ -162,7 +168,7 @@ fn population(rng: &mut Rng, n: usize) -> Vec<Person> {
         let surname = surnames[rng.pick_cumulative(&zipf)].clone();
         let town = rng.below(TOWNS.len());
         let street = rng.below(STREET_NAMES.len() * STREET_KINDS.len());
-        let house = 1 + rng.below(180) as u32;
+        let house = 1 + rng.below(houses(n)) as u32;
         let sector = (street as u32 * 7 + town as u32 * 3) % 100;
         let landline = rng.chance(0.6).then(|| phone(rng));
         let size = 1 + rng.below(4) + usize::from(rng.chance(0.1));
@@ -235,7 +241,7 @@ fn restyle(rng: &mut Rng, s: &str) -> String {
 }
 
 /// The person as written down again, with slips in proportion to `noise`.
-fn rerecord(rng: &mut Rng, p: &Person, noise: f64) -> Person {
+fn rerecord(rng: &mut Rng, p: &Person, noise: f64, houses: usize) -> Person {
     let mut q = p.clone();
     if rng.chance(0.35 * noise) {
         q.given = typo(rng, &q.given);
@@ -259,7 +265,7 @@ fn rerecord(rng: &mut Rng, p: &Person, noise: f64) -> Person {
     if rng.chance(0.3 * noise) {
         q.town = rng.below(TOWNS.len());
         q.street = rng.below(STREET_NAMES.len() * STREET_KINDS.len());
-        q.house = 1 + rng.below(180) as u32;
+        q.house = 1 + rng.below(houses) as u32;
         q.sector = (q.street as u32 * 7 + q.town as u32 * 3) % 100;
         q.phone = None;
     }
@@ -435,7 +441,7 @@ pub fn generate(opts: &SynthOptions) -> Synthetic {
         .iter()
         .enumerate()
         .map(|(i, &p)| {
-            let rec = rerecord(&mut rng, &people[p], 0.3 * opts.noise);
+            let rec = rerecord(&mut rng, &people[p], 0.3 * opts.noise, houses(people.len()));
             write_row(&rec, lid(i), &mut rng, opts.noise)
         })
         .collect();
@@ -447,7 +453,7 @@ pub fn generate(opts: &SynthOptions) -> Synthetic {
             if let Some(li) = li {
                 truth.push((lid(li), rid(j)));
             }
-            let rec = rerecord(&mut rng, &people[p], opts.noise);
+            let rec = rerecord(&mut rng, &people[p], opts.noise, houses(people.len()));
             write_row(&rec, rid(j), &mut rng, opts.noise)
         })
         .collect();

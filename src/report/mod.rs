@@ -353,6 +353,18 @@ fn read_tune(dir: &Path) -> Option<Vec<html::TuneRow>> {
         .ok()
 }
 
+/// The passes that produced pair `i`, joined with "+".
+fn found_by(prep: &Prepared, i: usize) -> String {
+    let mask = prep.cands.passes[i];
+    prep.pass_stats
+        .iter()
+        .enumerate()
+        .filter(|(p, _)| mask & (1 << p) != 0)
+        .map(|(_, s)| s.name.as_str())
+        .collect::<Vec<_>>()
+        .join("+")
+}
+
 /// Why a record stays unlinked.
 fn unlinked_reason(has_candidate: bool, in_optimum: bool) -> &'static str {
     match (has_candidate, in_optimum) {
@@ -472,10 +484,17 @@ pub fn write_linkage(dir: &Path, prep: &Prepared, l: &Linkage) -> Result<Vec<Pat
     });
     out.write("review.csv", |w| {
         let mut c = csv_writer(w);
-        let mut head: Vec<String> = ["left_id", "right_id", "status", "confidence", "weight"]
-            .iter()
-            .map(|s| s.to_string())
-            .collect();
+        let mut head: Vec<String> = [
+            "left_id",
+            "right_id",
+            "status",
+            "confidence",
+            "weight",
+            "found_by",
+        ]
+        .iter()
+        .map(|s| s.to_string())
+        .collect();
         for n in &names {
             head.push(format!("{n}_level"));
             head.push(format!("{n}_left"));
@@ -497,6 +516,7 @@ pub fn write_linkage(dir: &Path, prep: &Prepared, l: &Linkage) -> Result<Vec<Pat
                 status.to_string(),
                 num(l.confidence.p[i]),
                 num(prep.weight[i]),
+                found_by(prep, i),
             ];
             for (k, f) in prep.config.field.iter().enumerate() {
                 row.push(level_text(prep, i, k));
