@@ -55,6 +55,10 @@ pub fn clean(value: &str, how: Normalize, drop_tokens: &[String]) -> String {
 
 /// Unicode compatibility decomposition (NFKD) with combining marks (accents) removed.
 pub fn fold(value: &str) -> String {
+    // ASCII is its own compatibility decomposition: skip the Unicode tables (most values).
+    if value.is_ascii() {
+        return value.to_string();
+    }
     value.nfkd().filter(|c| !is_combining_mark(*c)).collect()
 }
 

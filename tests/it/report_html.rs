@@ -121,4 +121,6 @@ fn sample_report_renders_in_a_real_browser() {
         differing * 20 > pixels,
         "only {differing} of {pixels} pixels differ from the background"
     );
+    // Kept for people to look at: target/report-sample.png.
+    let _ = std::fs::copy(&png, root().join("target/report-sample.png"));
 }
