@@ -414,6 +414,79 @@ pub fn value_frequency_on_candidates(
     }
 }
 
+/// How strongly two fields move together within each class.
+#[derive(Debug, Clone, serde::Serialize)]
+pub struct Dependence {
+    /// First field (index into the fields).
+    pub a: usize,
+    /// Second field.
+    pub b: usize,
+    /// Phi coefficient of "top-level agreement" of the two fields among true pairs.
+    pub phi_m: f64,
+    /// The same among false pairs.
+    pub phi_u: f64,
+}
+
+/// A pair of fields with |phi| above this in both classes is reported as strongly dependent.
+/// Both, because blocking alone makes the false pairs of one pass agree together on its key
+/// fields; dependence in both classes (postcode and phone: one move changes both) is what
+/// makes the model count one piece of evidence twice.
+pub const STRONG_DEPENDENCE: f64 = 0.25;
+
+/// A |phi| above this in either class is strong on its own: the two fields are then nearly
+/// one (street and postcode among households).
+pub const NEARLY_ONE_FIELD: f64 = 0.75;
+
+impl Dependence {
+    /// Strong in both classes, or nearly one field in either.
+    pub fn is_strong(&self) -> bool {
+        let (m, u) = (self.phi_m.abs(), self.phi_u.abs());
+        m.min(u) > STRONG_DEPENDENCE || m.max(u) > NEARLY_ONE_FIELD
+    }
+}
+
+/// Measures, for every pair of fields, the phi coefficient (Pearson's correlation of two
+/// 0/1 variables; common practice) between "agrees at the top level" on each field, within
+/// the true-pair class and within the false-pair class, each pattern weighted by its count
+/// times its true-pair share `gamma` (or one minus it). Conditional independence, which the
+/// Fellegi–Sunter weights assume, makes both near zero; fields that move together (town and
+/// postcode, street and postcode) give large values, and their evidence is counted twice.
+pub fn dependence(pc: &PatternCounts, gamma: &[f64]) -> Vec<Dependence> {
+    let k = pc.levels.len();
+    let phi = |a: usize, b: usize, w: &dyn Fn(usize) -> f64| -> f64 {
+        let mut t = [[0.0f64; 2]; 2];
+        for (g, pat) in pc.patterns.iter().enumerate() {
+            let (x, y) = (pat[a], pat[b]);
+            if x == MISSING_LEVEL || y == MISSING_LEVEL {
+                continue;
+            }
+            t[(x == 0) as usize][(y == 0) as usize] += w(g);
+        }
+        let (r1, r0) = (t[1][0] + t[1][1], t[0][0] + t[0][1]);
+        let (c1, c0) = (t[0][1] + t[1][1], t[0][0] + t[1][0]);
+        let den = (r1 * r0 * c1 * c0).sqrt();
+        if den > 0.0 {
+            (t[1][1] * t[0][0] - t[1][0] * t[0][1]) / den
+        } else {
+            0.0
+        }
+    };
+    let wm = |g: usize| pc.counts[g] * gamma[g];
+    let wu = |g: usize| pc.counts[g] * (1.0 - gamma[g]);
+    let mut out = Vec::new();
+    for a in 0..k {
+        for b in a + 1..k {
+            out.push(Dependence {
+                a,
+                b,
+                phi_m: phi(a, b, &wm),
+                phi_u: phi(a, b, &wu),
+            });
+        }
+    }
+    out
+}
+
 /// A fit that says nothing: flat laws and p = 0, for runs without candidate pairs.
 pub fn null_fit(levels: &[usize]) -> Fit {
     let flat: Vec<Vec<f64>> = levels.iter().map(|&l| vec![1.0 / l as f64; l]).collect();
@@ -666,6 +739,50 @@ pub(crate) mod tests {
                 }
             }
         }
+    }
+
+    #[test]
+    fn dependence_finds_fields_that_move_together() {
+        // Independent fields give phi near 0; a field copied from another among false pairs
+        // (a shared household address, say) gives a large phi among false pairs. The phi
+        // coefficient is Pearson's correlation of two 0/1 variables (common practice).
+        let m = vec![vec![0.9, 0.1], vec![0.85, 0.15], vec![0.8, 0.2]];
+        let u = vec![vec![0.1, 0.9], vec![0.2, 0.8], vec![0.15, 0.85]];
+        let pc = simulate(0.2, &m, &u, 0.0, 200_000, 8);
+        let f = fit(&pc, &opts());
+        let (g, _) = responsibilities(
+            &State {
+                p: f.p,
+                m: f.m.clone(),
+                u: f.u.clone(),
+            },
+            &pc,
+        );
+        assert!(dependence(&pc, &g)
+            .iter()
+            .all(|d| d.phi_m.abs() < 0.03 && d.phi_u.abs() < 0.03));
+        // Now field 1 repeats field 0 among false pairs.
+        let mut rng = Rng::new(4);
+        let mut counts: BTreeMap<Vec<u8>, f64> = BTreeMap::new();
+        for _ in 0..100_000 {
+            let x = rng.chance(0.1) as u8 ^ 1; // 0 = agree with probability 0.1
+            let y = if rng.chance(0.9) {
+                x
+            } else {
+                rng.chance(0.2) as u8 ^ 1
+            };
+            let z = rng.chance(0.15) as u8 ^ 1;
+            *counts.entry(vec![x, y, z]).or_default() += 1.0;
+        }
+        let pc = PatternCounts {
+            levels: vec![2, 2, 2],
+            patterns: counts.keys().cloned().collect(),
+            counts: counts.values().copied().collect(),
+        };
+        let zero = vec![0.0; pc.patterns.len()];
+        let d = dependence(&pc, &zero);
+        assert!(d[0].phi_u > 0.7, "phi {}", d[0].phi_u);
+        assert!(d[1].phi_u.abs() < 0.03 && d[2].phi_u.abs() < 0.03);
     }
 
     #[test]

@@ -54,6 +54,8 @@ pub struct Prepared {
     pub fit: Fit,
     /// The laws from plain EM, before the one-to-one refinement.
     pub plain_fit: Fit,
+    /// Dependence between every pair of fields within each class.
+    pub dependence: Vec<model::Dependence>,
     /// Value-frequency tables of fields with `frequency = true`.
     pub frequency: Vec<Option<ValueFrequency>>,
     /// Per pair: the Fellegi–Sunter weight (sum of log-likelihood ratios).
@@ -287,6 +289,7 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
     let plain_fit = fit.clone();
     let mut fit = fit;
     let mut link_prob: Vec<f64> = theta.iter().map(|&t| confidence::pairwise(t)).collect();
+    let mut gamma: Vec<f64> = Vec::new();
     if !cands.is_empty() {
         // The refinement only needs shares per pattern, so a looser BP serves; the reported
         // confidences use the default settings.
@@ -299,10 +302,23 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
         for _ in 0..ONE_TO_ONE_ROUNDS {
             let marg =
                 confidence::marginals(records.n_left(), &cands.left, &cands.right, &theta, &rough);
-            let gamma = pattern_shares(&comparison, &counts, &marg.p);
+            gamma = pattern_shares(&comparison, &counts, &marg.p);
             fit = model::fit_from_shares(&counts, &gamma, &fit);
             (_, theta) = pair_weights(&records, &cands, &comparison, &fit, &no_frequency);
             link_prob = marg.p;
+        }
+    }
+    let dependence = if gamma.is_empty() {
+        Vec::new()
+    } else {
+        model::dependence(&counts, &gamma)
+    };
+    for d in &dependence {
+        if d.is_strong() {
+            warnings.push(format!(
+                "fields `{}` and `{}` move together among candidate pairs (phi {:.2} among true pairs, {:.2} among false pairs): the model counts their evidence twice; compare only one of them",
+                config.field[d.a].name, config.field[d.b].name, d.phi_m, d.phi_u
+            ));
         }
     }
     let frequency: Vec<Option<ValueFrequency>> = records
@@ -359,6 +375,7 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
         counts,
         fit,
         plain_fit,
+        dependence,
         frequency,
         weight,
         theta,

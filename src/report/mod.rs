@@ -83,6 +83,21 @@ pub struct PassSummary {
     pub skipped_blocks: usize,
 }
 
+/// One pair of fields in summary.json's `field_dependence`.
+#[derive(Debug, Serialize)]
+pub struct DependenceSummary {
+    /// First field.
+    pub a: String,
+    /// Second field.
+    pub b: String,
+    /// Phi among true pairs.
+    pub phi_m: f64,
+    /// Phi among false pairs.
+    pub phi_u: f64,
+    /// True when both are above 0.25 in size, or either above 0.75.
+    pub strong: bool,
+}
+
 /// The EM fit in summary.json.
 #[derive(Debug, Serialize)]
 pub struct FitSummary {
@@ -155,6 +170,9 @@ pub struct Summary {
     pub fields: Vec<FieldSummary>,
     /// Per pass.
     pub passes: Vec<PassSummary>,
+    /// Per pair of fields: the phi coefficient of top-level agreement within each class
+    /// (near 0 when the fields are conditionally independent, as the model assumes).
+    pub field_dependence: Vec<DependenceSummary>,
     /// How confidences were computed: components enumerated exactly and by belief propagation.
     pub confidence_components: Option<[usize; 3]>,
     /// Warnings, in plain words.
@@ -325,6 +343,17 @@ fn summary(
         },
         fields,
         passes,
+        field_dependence: prep
+            .dependence
+            .iter()
+            .map(|d| DependenceSummary {
+                a: prep.config.field[d.a].name.clone(),
+                b: prep.config.field[d.b].name.clone(),
+                phi_m: d.phi_m,
+                phi_u: d.phi_u,
+                strong: d.is_strong(),
+            })
+            .collect(),
         confidence_components: comps,
         warnings: prep.warnings.clone(),
         manifest: manifest(prep),

@@ -240,3 +240,41 @@ fn synth_makes_a_linkable_pair_with_truth() {
         &ids_of(&data.join("right.csv"), "rec_id"),
     );
 }
+
+#[test]
+fn dependent_fields_are_flagged() {
+    // Street and postcode change together when people move and agree together within a
+    // household: the run must say so (issue 4) and mark the pair in summary.json.
+    let dir = tempfile::tempdir().unwrap();
+    let cfg = std::fs::read_to_string(root().join("config-examples/sample.toml"))
+        .unwrap()
+        .replace("../sample-tables/", &format!("{}/sample-tables/", root().display()))
+        .replace(
+            "[[field]]\nname = \"postcode\"",
+            "[[field]]\nname = \"street\"\nleft = \"street\"\nright = \"address\"\nmethod = \"levenshtein\"\n\n[[field]]\nname = \"postcode\"",
+        );
+    let path = write(dir.path(), "street.toml", &cfg);
+    let out = dir.path().join("out");
+    let o = run(&[
+        "link",
+        "--config",
+        path.to_str().unwrap(),
+        "--out",
+        out.to_str().unwrap(),
+    ]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    assert!(
+        stderr(&o).contains("fields `street` and `postcode` move together"),
+        "{}",
+        stderr(&o)
+    );
+    let summary: serde_json::Value =
+        serde_json::from_slice(&std::fs::read(out.join("summary.json")).unwrap()).unwrap();
+    let pair = summary["field_dependence"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|d| d["a"] == "street" && d["b"] == "postcode")
+        .expect("street/postcode entry");
+    assert_eq!(pair["strong"], true);
+}
