@@ -180,6 +180,19 @@ pub struct ModelSpec {
     /// Stop when the log-likelihood changes by less than this (default 1e-9, relative).
     #[serde(default = "default_tolerance")]
     pub tolerance: f64,
+    /// A CSV of known true pairs (`left_id,right_id`), relative to the config file: their
+    /// agreement levels give m.
+    #[serde(default)]
+    pub labelled: Option<PathBuf>,
+    /// "start" (default): EM starts from the labelled m; "fix": m stays as labelled.
+    #[serde(default)]
+    pub labelled_use: Option<String>,
+    /// "em" (default) or "random": u from random pairs of records, kept fixed.
+    #[serde(default)]
+    pub u_from: Option<String>,
+    /// Random pairs drawn for `u_from = "random"` (default 200,000).
+    #[serde(default)]
+    pub random_pairs: Option<usize>,
 }
 
 /// Feasibility settings.
@@ -253,6 +266,10 @@ impl Default for ModelSpec {
         ModelSpec {
             max_iterations: default_max_iterations(),
             tolerance: default_tolerance(),
+            labelled: None,
+            labelled_use: None,
+            u_from: None,
+            random_pairs: None,
         }
     }
 }
@@ -330,7 +347,14 @@ const LINK_KEYS: &[&str] = &[
     "review_band",
     "stop_if_infeasible",
 ];
-const MODEL_KEYS: &[&str] = &["max_iterations", "tolerance"];
+const MODEL_KEYS: &[&str] = &[
+    "max_iterations",
+    "tolerance",
+    "labelled",
+    "labelled_use",
+    "u_from",
+    "random_pairs",
+];
 const ASSESS_KEYS: &[&str] = &[
     "feasible_margin",
     "infeasible_margin",
@@ -620,6 +644,20 @@ impl Config {
             return Err(Error::config(
                 "`assess.feasible_error` must be at least 0 and at most `assess.infeasible_error`",
             ));
+        }
+        if let Some(u) = self.model.labelled_use.as_deref() {
+            if u != "start" && u != "fix" {
+                return Err(Error::config(format!(
+                    "`model.labelled_use`: `{u}` is not one of start, fix"
+                )));
+            }
+        }
+        if let Some(u) = self.model.u_from.as_deref() {
+            if u != "em" && u != "random" {
+                return Err(Error::config(format!(
+                    "`model.u_from`: `{u}` is not one of em, random"
+                )));
+            }
         }
         if self.model.max_iterations == 0 {
             return Err(Error::config("`model.max_iterations` must be at least 1"));

@@ -416,6 +416,39 @@ pub fn read_scored_pairs_from(bytes: &[u8], label: &Path) -> Result<ScoredPairs>
     Ok(out)
 }
 
+/// Reads known pairs (`left_id,right_id`, other columns ignored) with the line of each.
+pub fn read_id_pairs(path: &Path) -> Result<Vec<(String, String, u64)>> {
+    let bytes = std::fs::read(path)
+        .map_err(|e| Error::input(format!("cannot read: {e}")).with_file(path))?;
+    let at = |e: Error| e.with_file(path);
+    let data = bytes.strip_prefix(b"\xEF\xBB\xBF").unwrap_or(&bytes);
+    let mut rdr = csv::ReaderBuilder::new().flexible(true).from_reader(data);
+    let header = rdr.headers().map_err(|e| at(csv_error(e)))?.clone();
+    let col = |want: &str| {
+        header.iter().position(|h| h.trim() == want).ok_or_else(|| {
+            at(Error::input(format!(
+                "column `{want}` not found in the header; it must name left_id and right_id"
+            ))
+            .with_line(1))
+        })
+    };
+    let (li, ri) = (col("left_id")?, col("right_id")?);
+    let mut out = Vec::new();
+    let mut lines_at = LineCounter::default();
+    let mut record = csv::StringRecord::new();
+    loop {
+        match rdr.read_record(&mut record) {
+            Ok(true) => {}
+            Ok(false) => break,
+            Err(e) => return Err(at(csv_error(e))),
+        }
+        let line = lines_at.line(data, record.position());
+        let get = |i: usize| record.get(i).unwrap_or("").trim().to_string();
+        out.push((get(li), get(ri), line));
+    }
+    Ok(out)
+}
+
 /// A set of output files written to temporary names and renamed into place together.
 ///
 /// Dropping an `OutputSet` without [`OutputSet::commit`] removes every temporary file, so a

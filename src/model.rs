@@ -48,6 +48,49 @@ pub struct EmOptions {
     pub tolerance: f64,
     /// A first guess of p (e.g. the smaller table's size over the number of candidates).
     pub p_hint: f64,
+    /// Laws held fixed or used as a start (from labelled pairs or random pairs).
+    pub known: Known,
+}
+
+/// Laws known from outside the EM: m from labelled true pairs, u from random pairs.
+#[derive(Debug, Clone, Default)]
+pub struct Known {
+    /// m estimated from labelled pairs.
+    pub m: Option<Vec<Vec<f64>>>,
+    /// Keep `m` fixed (true) or only start from it (false).
+    pub fix_m: bool,
+    /// u estimated from random pairs, kept fixed.
+    pub u: Option<Vec<Vec<f64>>>,
+}
+
+impl Known {
+    fn apply(&self, s: &mut State) {
+        if let (Some(m), true) = (&self.m, self.fix_m) {
+            s.m = m.clone();
+        }
+        if let Some(u) = &self.u {
+            s.u = u.clone();
+        }
+    }
+
+    fn any_fixed(&self) -> bool {
+        (self.m.is_some() && self.fix_m) || self.u.is_some()
+    }
+}
+
+/// Level frequencies of a set of patterns (missing left out), floored: the law of a sample
+/// of pairs known to be true (labelled) or almost all false (random pairs).
+pub fn law_of(levels: &[usize], patterns: &[Vec<u8>]) -> Vec<Vec<f64>> {
+    let mut law: Vec<Vec<f64>> = levels.iter().map(|&l| vec![0.0; l]).collect();
+    for pat in patterns {
+        for (k, &l) in pat.iter().enumerate() {
+            if l != MISSING_LEVEL {
+                law[k][l as usize] += 1.0;
+            }
+        }
+    }
+    law.iter_mut().for_each(|v| normalise_with_floor(v));
+    law
 }
 
 impl Fit {
@@ -177,6 +220,7 @@ fn run_em(mut s: State, pc: &PatternCounts, opts: &EmOptions) -> (State, f64, us
         }
         prev = ll;
         s = m_step(&g, pc);
+        opts.known.apply(&mut s);
     }
     let (_, ll) = responsibilities(&s, pc);
     (s, ll, opts.max_iterations, false)
@@ -229,11 +273,16 @@ pub fn fit(pc: &PatternCounts, opts: &EmOptions) -> Fit {
     ];
     let mut best: Option<(State, f64, usize, bool)> = None;
     for &(p, top) in &starts {
-        let s = State {
+        let mut s = State {
             p,
-            m: m_start(&pc.levels, top),
+            m: opts
+                .known
+                .m
+                .clone()
+                .unwrap_or_else(|| m_start(&pc.levels, top)),
             u: u0.clone(),
         };
+        opts.known.apply(&mut s);
         let run = run_em(s, pc, opts);
         if best.as_ref().is_none_or(|b| run.1 > b.1 + 1e-9 * b.1.abs()) {
             best = Some(run);
@@ -243,7 +292,7 @@ pub fn fit(pc: &PatternCounts, opts: &EmOptions) -> Fit {
     // Label-switching guard: the true-pair class is the one that agrees more often on the top
     // level in most fields.
     let agreeing = s.m.iter().zip(&s.u).filter(|(m, u)| m[0] > u[0]).count();
-    let switched = 2 * agreeing < s.m.len();
+    let switched = 2 * agreeing < s.m.len() && !opts.known.any_fixed();
     if switched {
         std::mem::swap(&mut s.m, &mut s.u);
         s.p = 1.0 - s.p;
@@ -271,8 +320,9 @@ pub fn fit(pc: &PatternCounts, opts: &EmOptions) -> Fit {
 /// pairs of the same record; weighting each pair by its probability under the constraint that
 /// a record has at most one true partner removes that double counting (the idea behind
 /// Jaro 1989's use of the assignment problem and Sadinle 2017's bipartite matching model).
-pub fn fit_from_shares(pc: &PatternCounts, gamma: &[f64], previous: &Fit) -> Fit {
-    let s = m_step(gamma, pc);
+pub fn fit_from_shares(pc: &PatternCounts, gamma: &[f64], previous: &Fit, known: &Known) -> Fit {
+    let mut s = m_step(gamma, pc);
+    known.apply(&mut s);
     let (m_missing, u_missing) = missing_shares(gamma, pc);
     let ll = log_likelihood(s.p, &s.m, &s.u, pc);
     Fit {
@@ -557,6 +607,7 @@ pub(crate) mod tests {
             max_iterations: 2000,
             tolerance: 1e-12,
             p_hint: 0.1,
+            known: Known::default(),
         }
     }
 
@@ -725,6 +776,7 @@ pub(crate) mod tests {
                     max_iterations: 100_000,
                     tolerance: 1e-15,
                     p_hint: 0.1,
+                    known: Known::default(),
                 },
             );
             let close = |a: f64, b: &serde_json::Value, what: &str| {
@@ -783,6 +835,28 @@ pub(crate) mod tests {
         let d = dependence(&pc, &zero);
         assert!(d[0].phi_u > 0.7, "phi {}", d[0].phi_u);
         assert!(d[1].phi_u.abs() < 0.03 && d[2].phi_u.abs() < 0.03);
+    }
+
+    #[test]
+    fn fixed_laws_stay_fixed_and_help() {
+        // u held at the truth (as random pairs give it) and m started from labelled pairs:
+        // EM must keep u exactly and recover m and p (simulation from known laws).
+        let m = vec![vec![0.85, 0.1, 0.05], vec![0.9, 0.1], vec![0.7, 0.3]];
+        let u = vec![vec![0.05, 0.15, 0.8], vec![0.3, 0.7], vec![0.2, 0.8]];
+        let pc = simulate(0.1, &m, &u, 0.0, 200_000, 17);
+        let mut o = opts();
+        o.known = Known {
+            m: Some(vec![vec![0.6, 0.2, 0.2], vec![0.7, 0.3], vec![0.5, 0.5]]),
+            fix_m: false,
+            u: Some(u.clone()),
+        };
+        let f = fit(&pc, &o);
+        assert_eq!(f.u, u);
+        assert!((f.p - 0.1).abs() < 0.005, "p {}", f.p);
+        assert!((f.m[0][0] - 0.85).abs() < 0.02 && (f.m[2][0] - 0.7).abs() < 0.02);
+        o.known.fix_m = true;
+        let f = fit(&pc, &o);
+        assert_eq!(f.m, o.known.m.clone().unwrap());
     }
 
     #[test]

@@ -140,6 +140,76 @@ fn read_side(cfg: &Config, left: bool) -> Result<Table> {
     io::read_table(&cfg.resolve(&spec.path), &read)
 }
 
+/// Laws known from outside the EM: m from the labelled pairs and u from random pairs, as the
+/// config asks.
+fn known_laws(
+    config: &Config,
+    records: &Records,
+    comparison: &Comparison,
+    counts: &PatternCounts,
+) -> Result<model::Known> {
+    let levels_of = |cands: &Candidates| -> Vec<Vec<u8>> {
+        let c = compare::compare(records, cands);
+        c.codes
+            .iter()
+            .map(|&code| comparison.levels_of(code))
+            .collect()
+    };
+    let mut known = model::Known::default();
+    if let Some(path) = &config.model.labelled {
+        let path = config.resolve(path);
+        let lmap: HashMap<&str, u32> = records
+            .left_ids
+            .iter()
+            .enumerate()
+            .map(|(i, s)| (s.as_str(), i as u32))
+            .collect();
+        let rmap: HashMap<&str, u32> = records
+            .right_ids
+            .iter()
+            .enumerate()
+            .map(|(i, s)| (s.as_str(), i as u32))
+            .collect();
+        let mut cands = Candidates::default();
+        for (l, r, line) in io::read_id_pairs(&path)? {
+            let find = |map: &HashMap<&str, u32>, id: &str, col: &str| {
+                map.get(id).copied().ok_or_else(|| {
+                    Error::input(format!(
+                        "id `{id}` is not in the {} table",
+                        &col[..col.len() - 3]
+                    ))
+                    .with_file(&path)
+                    .with_line(line)
+                    .with_column(col)
+                })
+            };
+            cands.left.push(find(&lmap, &l, "left_id")?);
+            cands.right.push(find(&rmap, &r, "right_id")?);
+            cands.passes.push(0);
+        }
+        if cands.is_empty() {
+            return Err(Error::input("no labelled pairs in the file").with_file(&path));
+        }
+        known.m = Some(model::law_of(&counts.levels, &levels_of(&cands)));
+        known.fix_m = config.model.labelled_use.as_deref() == Some("fix");
+    }
+    if config.model.u_from.as_deref() == Some("random")
+        && records.n_left() > 0
+        && records.n_right() > 0
+    {
+        let n = config.model.random_pairs.unwrap_or(200_000);
+        let mut rng = crate::rng::Rng::new(config.assess.seed ^ 0x0A11);
+        let mut cands = Candidates::default();
+        for _ in 0..n {
+            cands.left.push(rng.below(records.n_left()) as u32);
+            cands.right.push(rng.below(records.n_right()) as u32);
+            cands.passes.push(0);
+        }
+        known.u = Some(model::law_of(&counts.levels, &levels_of(&cands)));
+    }
+    Ok(known)
+}
+
 /// Ready-to-run passes from a list of pass specs (`at` names the list in errors).
 pub fn passes_from(
     config: &Config,
@@ -256,6 +326,7 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
     clock.lap("comparing", &mut timings);
 
     progress.stage("fitting");
+    let known = known_laws(&config, &records, &comparison, &counts)?;
     let fit = if cands.is_empty() {
         model::null_fit(&counts.levels)
     } else {
@@ -266,6 +337,7 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
                 max_iterations: config.model.max_iterations,
                 tolerance: config.model.tolerance,
                 p_hint,
+                known: known.clone(),
             },
         );
         if !f.converged {
@@ -303,7 +375,7 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
             let marg =
                 confidence::marginals(records.n_left(), &cands.left, &cands.right, &theta, &rough);
             gamma = pattern_shares(&comparison, &counts, &marg.p);
-            fit = model::fit_from_shares(&counts, &gamma, &fit);
+            fit = model::fit_from_shares(&counts, &gamma, &fit, &known);
             (_, theta) = pair_weights(&records, &cands, &comparison, &fit, &no_frequency);
             link_prob = marg.p;
         }

@@ -278,3 +278,68 @@ fn dependent_fields_are_flagged() {
         .expect("street/postcode entry");
     assert_eq!(pair["strong"], true);
 }
+
+#[test]
+fn labelled_pairs_and_random_pair_u() {
+    // m from 200 known pairs and u from random pairs (issue 4): the run still links the
+    // sample with precision and recall of at least 0.95; an unknown id is a one-line error.
+    let dir = tempfile::tempdir().unwrap();
+    let truth_text = std::fs::read_to_string(root().join("sample-tables/truth.csv")).unwrap();
+    let labelled: String = truth_text
+        .lines()
+        .take(201)
+        .map(|l| format!("{l}\n"))
+        .collect();
+    write(dir.path(), "labelled.csv", &labelled);
+    let base = std::fs::read_to_string(root().join("config-examples/sample.toml"))
+        .unwrap()
+        .replace(
+            "../sample-tables/",
+            &format!("{}/sample-tables/", root().display()),
+        );
+    let cfg = format!("{base}\n[model]\nlabelled = \"labelled.csv\"\nu_from = \"random\"\n");
+    let path = write(dir.path(), "known.toml", &cfg);
+    let out = dir.path().join("out");
+    let o = run(&[
+        "link",
+        "--config",
+        path.to_str().unwrap(),
+        "--out",
+        out.to_str().unwrap(),
+        "--quiet",
+    ]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let (_, links) = read_csv(&out.join("links.csv"));
+    let truth = truth();
+    let correct = links
+        .iter()
+        .filter(|r| truth.contains(&(r[0].clone(), r[1].clone())))
+        .count();
+    let (precision, recall) = (
+        correct as f64 / links.len() as f64,
+        correct as f64 / truth.len() as f64,
+    );
+    assert!(
+        precision >= 0.95 && recall >= 0.95,
+        "precision {precision}, recall {recall}"
+    );
+    write(
+        dir.path(),
+        "labelled.csv",
+        "left_id,right_id\nL0000001,NOPE\n",
+    );
+    let o = run(&[
+        "link",
+        "--config",
+        path.to_str().unwrap(),
+        "--out",
+        out.to_str().unwrap(),
+        "--quiet",
+    ]);
+    assert_eq!(o.status.code(), Some(1));
+    let e = stderr(&o);
+    assert!(
+        e.contains("labelled.csv: line 2: column right_id: id `NOPE` is not in the right table"),
+        "{e}"
+    );
+}
