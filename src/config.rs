@@ -93,7 +93,9 @@ pub enum Normalize {
 pub struct FieldSpec {
     /// Label used in outputs and in blocking keys.
     pub name: String,
-    /// Column in the left table (defaults to `name`).
+    /// Column in the left table (defaults to `name`). Several columns joined with `+`
+    /// (e.g. "street+postcode") make one grouped comparison of their values joined by a space,
+    /// for fields that move together.
     #[serde(default)]
     pub left: Option<String>,
     /// Column in the right table (defaults to `name`).

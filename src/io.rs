@@ -46,6 +46,29 @@ impl Table {
     pub fn column(&self, name: &str) -> &[String] {
         self.columns.get(name).map(Vec::as_slice).unwrap_or(&[])
     }
+
+    /// One row's value of a field's column spec: a column name, or several joined with `+`
+    /// (a grouped comparison), whose non-empty values are joined with a space.
+    pub fn value(&self, spec: &str, row: usize) -> String {
+        if !spec.contains('+') {
+            return self.column(spec).get(row).cloned().unwrap_or_default();
+        }
+        let parts: Vec<&str> = spec
+            .split('+')
+            .filter_map(|c| self.column(c.trim()).get(row).map(String::as_str))
+            .filter(|v| !v.is_empty())
+            .collect();
+        parts.join(" ")
+    }
+
+    /// Every row's value of a column spec (see [`Table::value`]).
+    pub fn values(&self, spec: &str) -> std::borrow::Cow<'_, [String]> {
+        if spec.contains('+') {
+            std::borrow::Cow::Owned((0..self.len()).map(|r| self.value(spec, r)).collect())
+        } else {
+            std::borrow::Cow::Borrowed(self.column(spec))
+        }
+    }
 }
 
 /// Text encodings accepted for input tables.

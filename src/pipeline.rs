@@ -119,16 +119,19 @@ fn read_side(cfg: &Config, left: bool) -> Result<Table> {
             )))
         }
     };
+    // A column spec may join several columns with `+` (one grouped comparison).
     let columns = cfg
         .field
         .iter()
-        .map(|f| {
+        .flat_map(|f| {
             if left {
                 f.left_column()
             } else {
                 f.right_column()
             }
-            .to_string()
+            .split('+')
+            .map(|c| c.trim().to_string())
+            .collect::<Vec<_>>()
         })
         .collect();
     let read = ReadSpec {
@@ -246,7 +249,7 @@ fn drop_empty_fields(
     right: &Table,
     warnings: &mut Vec<String>,
 ) -> Result<Config> {
-    let all_empty = |t: &Table, col: &str| t.column(col).iter().all(|v| v.is_empty());
+    let all_empty = |t: &Table, col: &str| t.values(col).iter().all(|v| v.is_empty());
     let mut empty: Vec<String> = Vec::new();
     for f in &config.field {
         for (t, col, side) in [

@@ -114,7 +114,7 @@ pub fn build(left: &Table, right: &Table, specs: &[FieldSpec]) -> Result<Records
 fn build_field(left: &Table, right: &Table, spec: &FieldSpec) -> Result<FieldValues> {
     let how = spec.normalize();
     let clean_all = |t: &Table, col: &str| -> Vec<String> {
-        t.column(col)
+        t.values(col)
             .par_iter()
             .map(|v| text::clean(v, how, &spec.drop_tokens))
             .collect()

@@ -593,18 +593,8 @@ pub fn page(prep: &Prepared, l: &Linkage, review: &[usize], tune: Option<&[TuneR
                 l.confidence.p[i]
             );
             for f in &prep.config.field {
-                let lv = prep
-                    .left
-                    .column(f.left_column())
-                    .get(la)
-                    .cloned()
-                    .unwrap_or_default();
-                let rv = prep
-                    .right
-                    .column(f.right_column())
-                    .get(rb)
-                    .cloned()
-                    .unwrap_or_default();
+                let lv = prep.left.value(f.left_column(), la);
+                let rv = prep.right.value(f.right_column(), rb);
                 let _ = write!(h, "<td>{}<br>{}</td>", escape(&lv), escape(&rv));
             }
             let _ = write!(h, "</tr>");

@@ -549,20 +549,8 @@ pub fn write_linkage(dir: &Path, prep: &Prepared, l: &Linkage) -> Result<Vec<Pat
             ];
             for (k, f) in prep.config.field.iter().enumerate() {
                 row.push(level_text(prep, i, k));
-                row.push(
-                    prep.left
-                        .column(f.left_column())
-                        .get(a)
-                        .cloned()
-                        .unwrap_or_default(),
-                );
-                row.push(
-                    prep.right
-                        .column(f.right_column())
-                        .get(b)
-                        .cloned()
-                        .unwrap_or_default(),
-                );
+                row.push(prep.left.value(f.left_column(), a));
+                row.push(prep.right.value(f.right_column(), b));
             }
             c.write_record(&row).map_err(to_io)?;
         }

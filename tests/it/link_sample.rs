@@ -277,6 +277,51 @@ fn dependent_fields_are_flagged() {
         .find(|d| d["a"] == "street" && d["b"] == "postcode")
         .expect("street/postcode entry");
     assert_eq!(pair["strong"], true);
+
+    // Grouped into one comparison ("street+postcode"), the pair is one field: no warning,
+    // and the sample still links with precision and recall of at least 0.95.
+    let grouped = cfg
+        .replace(
+            "name = \"street\"\nleft = \"street\"\nright = \"address\"",
+            "name = \"address\"\nleft = \"street+postcode\"\nright = \"address+postcode\"",
+        )
+        .replace(
+            "[[field]]\nname = \"postcode\"\nmethod = \"exact\"\nnormalize = \"code\"\n",
+            "",
+        );
+    let path = write(
+        dir.path(),
+        "grouped.toml",
+        &grouped.replace(
+            "keys = [\"postcode\", \"given:first:1\"]",
+            "keys = [\"address:last:6\", \"given:first:1\"]",
+        ),
+    );
+    let out = dir.path().join("out2");
+    let o = run(&[
+        "link",
+        "--config",
+        path.to_str().unwrap(),
+        "--out",
+        out.to_str().unwrap(),
+    ]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    assert!(!stderr(&o).contains("move together"), "{}", stderr(&o));
+    let (head, links) = read_csv(&out.join("links.csv"));
+    assert!(head.contains(&"address".to_string()) && !head.contains(&"postcode".to_string()));
+    let truth = truth();
+    let correct = links
+        .iter()
+        .filter(|r| truth.contains(&(r[0].clone(), r[1].clone())))
+        .count();
+    let (precision, recall) = (
+        correct as f64 / links.len() as f64,
+        correct as f64 / truth.len() as f64,
+    );
+    assert!(
+        precision >= 0.95 && recall >= 0.95,
+        "precision {precision}, recall {recall}"
+    );
 }
 
 #[test]
