@@ -200,24 +200,9 @@ pub fn read_table_from(bytes: &[u8], label: &Path, spec: &ReadSpec) -> Result<Ta
     let mut seen: HashMap<String, u64> = HashMap::new();
     let mut record = csv::ByteRecord::new();
     let mut lines_at = LineCounter::default();
-    loop {
-        match rdr.read_byte_record(&mut record) {
-            Ok(true) => {}
-            Ok(false) => break,
-            Err(e) => return Err(at(csv_error(e))),
-        }
-        let line = lines_at.line(data, record.position());
-        if record.len() == 1 && record.get(0).is_some_and(|c| c.is_empty()) && names.len() > 1 {
-            continue; // a blank line
-        }
-        if record.len() != names.len() {
-            return Err(at(Error::input(format!(
-                "row has {} cells but the header has {}",
-                record.len(),
-                names.len()
-            ))
-            .with_line(line)));
-        }
+    while let Some(line) =
+        next_row(&mut rdr, &mut record, data, &mut lines_at, names.len()).map_err(at)?
+    {
         let cell = |i: usize, col: &str| -> Result<String> {
             let raw = record.get(i).unwrap_or(b"");
             if raw.len() > MAX_CELL_BYTES {
@@ -263,6 +248,29 @@ pub fn read_table_from(bytes: &[u8], label: &Path, spec: &ReadSpec) -> Result<Ta
         bytes: bytes.len() as u64,
         sha256: sha256_hex(bytes),
     })
+}
+
+/// Reads the next record into `record` and returns its line, or `None` at the end; a row
+/// whose cell count differs from the header's is an error.
+fn next_row(
+    rdr: &mut csv::Reader<&[u8]>,
+    record: &mut csv::ByteRecord,
+    data: &[u8],
+    lines: &mut LineCounter,
+    width: usize,
+) -> Result<Option<u64>> {
+    if !rdr.read_byte_record(record).map_err(csv_error)? {
+        return Ok(None);
+    }
+    let line = lines.line(data, record.position());
+    if record.len() != width {
+        return Err(Error::input(format!(
+            "row has {} cells but the header has {width}",
+            record.len()
+        ))
+        .with_line(line));
+    }
+    Ok(Some(line))
 }
 
 /// Line numbers of records from their byte offsets, counted incrementally. The csv crate's
@@ -377,21 +385,9 @@ pub fn read_scored_pairs_from(bytes: &[u8], label: &Path) -> Result<ScoredPairs>
     let mut seen: HashMap<(u32, u32), u64> = HashMap::new();
     let mut record = csv::ByteRecord::new();
     let mut lines_at = LineCounter::default();
-    loop {
-        match rdr.read_byte_record(&mut record) {
-            Ok(true) => {}
-            Ok(false) => break,
-            Err(e) => return Err(at(csv_error(e))),
-        }
-        let line = lines_at.line(data, record.position());
-        if record.len() != names.len() {
-            return Err(at(Error::input(format!(
-                "row has {} cells but the header has {}",
-                record.len(),
-                names.len()
-            ))
-            .with_line(line)));
-        }
+    while let Some(line) =
+        next_row(&mut rdr, &mut record, data, &mut lines_at, names.len()).map_err(at)?
+    {
         let text = |i: usize, c: &str| -> Result<String> {
             let raw = record.get(i).unwrap_or(b"");
             let s = std::str::from_utf8(raw).map_err(|_| at(not_utf8(line, c)))?;

@@ -6,7 +6,7 @@
 
 use crate::block::{self, Candidates, Pass, PassStats};
 use crate::compare::{self, Comparison, PatternCounts, MISSING_LEVEL};
-use crate::config::{Config, Method};
+use crate::config::Config;
 use crate::error::{Error, Result};
 use crate::io::{self, Encoding, ReadSpec, Table};
 use crate::matching::{self, Matching};
@@ -676,11 +676,6 @@ pub fn level_text(prep: &Prepared, i: usize, k: usize) -> String {
         MISSING_LEVEL => "missing".to_string(),
         l => l.to_string(),
     }
-}
-
-/// Whether a field uses the date method (for outputs that show values).
-pub fn is_date(prep: &Prepared, k: usize) -> bool {
-    prep.config.field[k].method == Method::Date
 }
 
 #[cfg(test)]

@@ -78,6 +78,17 @@ pub fn assert_conservation(out: &Path, left_ids: &[String], right_ids: &[String]
     assert_eq!(seen_r.len(), right_ids.len(), "no unknown right ids");
 }
 
+/// The demo config's text with the sample tables' paths made absolute, to edit and write
+/// elsewhere.
+pub fn sample_config_text() -> String {
+    std::fs::read_to_string(root().join("config-examples/sample.toml"))
+        .expect("sample config")
+        .replace(
+            "../sample-tables/",
+            &format!("{}/sample-tables/", root().display()),
+        )
+}
+
 /// Files in a folder (names), sorted.
 pub fn files_in(dir: &Path) -> Vec<String> {
     let mut v: Vec<String> = match std::fs::read_dir(dir) {

@@ -160,15 +160,11 @@ fn too_few_fields_is_infeasible_and_can_stop() {
     // models): the verdict is infeasible, no confident links are written, and with
     // --stop-if-infeasible the run stops with exit status 3 and writes nothing.
     let dir = tempfile::tempdir().unwrap();
-    let cfg = std::fs::read_to_string(root().join("config-examples/sample.toml")).unwrap();
+    let cfg = sample_config_text();
     let start = cfg.find("[[field]]\nname = \"birth\"").unwrap();
     let end = cfg.find("# Two passes").unwrap();
     let tail = cfg.find("# Extra blocking schemes").unwrap_or(cfg.len());
     let cut = format!("{}{}", &cfg[..start], &cfg[end..tail])
-        .replace(
-            "../sample-tables/",
-            &format!("{}/sample-tables/", root().display()),
-        )
         .replace("[[block]]\nkeys = [\"postcode\", \"given:first:1\"]\n", "")
         .replace(
             "keys = [\"surname:soundex\", \"birth:year\"]",
@@ -246,10 +242,7 @@ fn dependent_fields_are_flagged() {
     // Street and postcode change together when people move and agree together within a
     // household: the run must say so (issue 4) and mark the pair in summary.json.
     let dir = tempfile::tempdir().unwrap();
-    let cfg = std::fs::read_to_string(root().join("config-examples/sample.toml"))
-        .unwrap()
-        .replace("../sample-tables/", &format!("{}/sample-tables/", root().display()))
-        .replace(
+    let cfg = sample_config_text().replace(
             "[[field]]\nname = \"postcode\"",
             "[[field]]\nname = \"street\"\nleft = \"street\"\nright = \"address\"\nmethod = \"levenshtein\"\n\n[[field]]\nname = \"postcode\"",
         );
@@ -336,12 +329,7 @@ fn labelled_pairs_and_random_pair_u() {
         .map(|l| format!("{l}\n"))
         .collect();
     write(dir.path(), "labelled.csv", &labelled);
-    let base = std::fs::read_to_string(root().join("config-examples/sample.toml"))
-        .unwrap()
-        .replace(
-            "../sample-tables/",
-            &format!("{}/sample-tables/", root().display()),
-        );
+    let base = sample_config_text();
     let cfg = format!("{base}\n[model]\nlabelled = \"labelled.csv\"\nu_from = \"random\"\n");
     let path = write(dir.path(), "known.toml", &cfg);
     let out = dir.path().join("out");
