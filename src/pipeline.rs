@@ -477,6 +477,20 @@ fn pattern_shares(comparison: &Comparison, counts: &PatternCounts, p: &[f64]) ->
         .collect()
 }
 
+/// Theta (log posterior odds) of every pair of another candidate set, with this run's fitted
+/// laws and value-frequency tables (used by `tune`).
+pub fn score(prep: &Prepared, cands: &Candidates) -> Vec<f64> {
+    let comparison = compare::compare(&prep.records, cands);
+    pair_weights(
+        &prep.records,
+        cands,
+        &comparison,
+        &prep.fit,
+        &prep.frequency,
+    )
+    .1
+}
+
 /// Per pair: the weight (sum of per-field log-likelihood ratios, value-frequency adjusted) and
 /// theta = weight + ln(p / (1 - p)).
 pub fn pair_weights(

@@ -13,9 +13,8 @@
 //! capped so that sample x right records stays below [`MAX_REFERENCE_PAIRS`].
 
 use crate::block::{self, Candidates, Pass};
-use crate::compare;
 use crate::matching;
-use crate::pipeline::{pair_weights, Prepared};
+use crate::pipeline::{score, Prepared};
 use crate::reliability::forecast::{self, ForecastOptions};
 use crate::rng::Rng;
 use serde::Serialize;
@@ -81,14 +80,7 @@ fn reference(prep: &Prepared, opts: &TuneOptions) -> Reference {
         right: (0..sampled.len()).flat_map(|_| 0..nr as u32).collect(),
         passes: vec![0; sampled.len() * nr],
     };
-    let comparison = compare::compare(&prep.records, &cands);
-    let (_, theta) = pair_weights(
-        &prep.records,
-        &cands,
-        &comparison,
-        &prep.fit,
-        &prep.frequency,
-    );
+    let theta = score(prep, &cands);
     let partners = (0..sampled.len())
         .map(|k| {
             let t = &theta[k * nr..(k + 1) * nr];
@@ -144,14 +136,7 @@ pub fn evaluate(
             } else {
                 0.0
             };
-            let comparison = compare::compare(&prep.records, &cands);
-            let (_, theta) = pair_weights(
-                &prep.records,
-                &cands,
-                &comparison,
-                &prep.fit,
-                &prep.frequency,
-            );
+            let theta = score(prep, &cands);
             let m = matching::max_weight_matching(nl, &cands.left, &cands.right, &theta);
             let fc = forecast::bracketed(
                 nl,

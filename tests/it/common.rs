@@ -89,6 +89,30 @@ pub fn sample_config_text() -> String {
         )
 }
 
+/// The (left id, right id) pairs of a truth.csv text.
+pub fn truth_pairs(text: &str) -> std::collections::HashSet<(String, String)> {
+    text.lines()
+        .skip(1)
+        .filter_map(|l| l.split_once(','))
+        .map(|(a, b)| (a.to_string(), b.to_string()))
+        .collect()
+}
+
+/// Precision and recall of links.csv rows against a truth.
+pub fn precision_recall(
+    links: &[Vec<String>],
+    truth: &std::collections::HashSet<(String, String)>,
+) -> (f64, f64) {
+    let correct = links
+        .iter()
+        .filter(|r| truth.contains(&(r[0].clone(), r[1].clone())))
+        .count();
+    (
+        correct as f64 / links.len() as f64,
+        correct as f64 / truth.len() as f64,
+    )
+}
+
 /// Files in a folder (names), sorted.
 pub fn files_in(dir: &Path) -> Vec<String> {
     let mut v: Vec<String> = match std::fs::read_dir(dir) {

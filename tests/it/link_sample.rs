@@ -302,15 +302,7 @@ fn dependent_fields_are_flagged() {
     assert!(!stderr(&o).contains("move together"), "{}", stderr(&o));
     let (head, links) = read_csv(&out.join("links.csv"));
     assert!(head.contains(&"address".to_string()) && !head.contains(&"postcode".to_string()));
-    let truth = truth();
-    let correct = links
-        .iter()
-        .filter(|r| truth.contains(&(r[0].clone(), r[1].clone())))
-        .count();
-    let (precision, recall) = (
-        correct as f64 / links.len() as f64,
-        correct as f64 / truth.len() as f64,
-    );
+    let (precision, recall) = precision_recall(&links, &truth());
     assert!(
         precision >= 0.95 && recall >= 0.95,
         "precision {precision}, recall {recall}"
@@ -343,15 +335,7 @@ fn labelled_pairs_and_random_pair_u() {
     ]);
     assert!(o.status.success(), "{}", stderr(&o));
     let (_, links) = read_csv(&out.join("links.csv"));
-    let truth = truth();
-    let correct = links
-        .iter()
-        .filter(|r| truth.contains(&(r[0].clone(), r[1].clone())))
-        .count();
-    let (precision, recall) = (
-        correct as f64 / links.len() as f64,
-        correct as f64 / truth.len() as f64,
-    );
+    let (precision, recall) = precision_recall(&links, &truth());
     assert!(
         precision >= 0.95 && recall >= 0.95,
         "precision {precision}, recall {recall}"

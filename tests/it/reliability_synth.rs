@@ -48,15 +48,7 @@ fn run_with(
     let config = Config::from_text(&cfg, dir).expect("config");
     let mut prep = pipeline::prepare(config, &Silent).expect("prepare");
     let linkage = pipeline::link(&mut prep, &Silent);
-    let truth = s
-        .truth_csv
-        .lines()
-        .skip(1)
-        .map(|l| {
-            let (a, b) = l.split_once(',').unwrap();
-            (a.to_string(), b.to_string())
-        })
-        .collect();
+    let truth = crate::common::truth_pairs(&s.truth_csv);
     Run {
         prep,
         linkage,

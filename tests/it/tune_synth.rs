@@ -58,15 +58,7 @@ fn completeness_estimates_match_the_truth() {
             replicates: 2,
         },
     );
-    let truth: HashSet<(String, String)> = s
-        .truth_csv
-        .lines()
-        .skip(1)
-        .map(|l| {
-            let (a, b) = l.split_once(',').unwrap();
-            (a.to_string(), b.to_string())
-        })
-        .collect();
+    let truth: HashSet<(String, String)> = crate::common::truth_pairs(&s.truth_csv);
     for ((name, passes), row) in schemes.iter().zip(&rows) {
         let (c, _) = block::candidates(&prep.records, passes);
         let found = (0..c.len())
