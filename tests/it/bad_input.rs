@@ -14,14 +14,7 @@ fn run_small(
     write(dir, "left.csv", left);
     write(dir, "right.csv", right);
     let out = dir.join("out");
-    let o = run(&[
-        "link",
-        "--config",
-        dir.join("config.toml").to_str().unwrap(),
-        "--out",
-        out.to_str().unwrap(),
-        "--quiet",
-    ]);
+    let o = run_link(&dir.join("config.toml"), &out, &["--quiet"]);
     (o.status.code(), stderr(&o), files_in(&out))
 }
 
@@ -56,14 +49,7 @@ fn missing_file() {
     write(dir.path(), "config.toml", SMALL_CONFIG);
     write(dir.path(), "right.csv", SMALL_RIGHT);
     let out = dir.path().join("out");
-    let o = run(&[
-        "link",
-        "--config",
-        dir.path().join("config.toml").to_str().unwrap(),
-        "--out",
-        out.to_str().unwrap(),
-        "--quiet",
-    ]);
+    let o = run_link(&dir.path().join("config.toml"), &out, &["--quiet"]);
     assert_eq!(o.status.code(), Some(1));
     let e = stderr(&o);
     assert!(

@@ -22,6 +22,19 @@ pub fn run(args: &[&str]) -> Output {
         .expect("run dovetail")
 }
 
+/// Runs `dovetail link --config CONFIG --out OUT` with extra arguments.
+pub fn run_link(config: &Path, out: &Path, extra: &[&str]) -> Output {
+    let mut args = vec![
+        "link",
+        "--config",
+        config.to_str().expect("utf-8 path"),
+        "--out",
+        out.to_str().expect("utf-8 path"),
+    ];
+    args.extend_from_slice(extra);
+    run(&args)
+}
+
 /// The text of stderr.
 pub fn stderr(o: &Output) -> String {
     String::from_utf8_lossy(&o.stderr).to_string()

@@ -15,14 +15,7 @@ fn links_sample_tables_one_to_one_with_pinned_outputs() {
     let dir = tempfile::tempdir().unwrap();
     let out = dir.path().join("out");
     let cfg = root().join("config-examples/sample.toml");
-    let o = run(&[
-        "link",
-        "--config",
-        cfg.to_str().unwrap(),
-        "--out",
-        out.to_str().unwrap(),
-        "--quiet",
-    ]);
+    let o = run_link(&cfg, &out, &["--quiet"]);
     assert!(o.status.success(), "{}", stderr(&o));
     assert_eq!(
         files_in(&out),
@@ -172,13 +165,7 @@ fn too_few_fields_is_infeasible_and_can_stop() {
         );
     let path = write(dir.path(), "two.toml", &cut);
     let out = dir.path().join("out");
-    let o = run(&[
-        "link",
-        "--config",
-        path.to_str().unwrap(),
-        "--out",
-        out.to_str().unwrap(),
-    ]);
+    let o = run_link(&path, &out, &[]);
     assert!(o.status.success(), "{}", stderr(&o));
     let text = String::from_utf8_lossy(&o.stdout);
     assert!(
@@ -188,14 +175,7 @@ fn too_few_fields_is_infeasible_and_can_stop() {
     let (_, links) = read_csv(&out.join("links.csv"));
     assert!(links.is_empty());
     let out2 = dir.path().join("out2");
-    let o = run(&[
-        "link",
-        "--config",
-        path.to_str().unwrap(),
-        "--out",
-        out2.to_str().unwrap(),
-        "--stop-if-infeasible",
-    ]);
+    let o = run_link(&path, &out2, &["--stop-if-infeasible"]);
     assert_eq!(o.status.code(), Some(3));
     assert!(files_in(&out2).is_empty());
 }
@@ -221,14 +201,7 @@ fn synth_makes_a_linkable_pair_with_truth() {
         ["config.toml", "left.csv", "right.csv", "truth.csv"]
     );
     let out = dir.path().join("out");
-    let o = run(&[
-        "link",
-        "--config",
-        data.join("config.toml").to_str().unwrap(),
-        "--out",
-        out.to_str().unwrap(),
-        "--quiet",
-    ]);
+    let o = run_link(&data.join("config.toml"), &out, &["--quiet"]);
     assert!(o.status.success(), "{}", stderr(&o));
     assert_conservation(
         &out,
@@ -248,13 +221,7 @@ fn dependent_fields_are_flagged() {
         );
     let path = write(dir.path(), "street.toml", &cfg);
     let out = dir.path().join("out");
-    let o = run(&[
-        "link",
-        "--config",
-        path.to_str().unwrap(),
-        "--out",
-        out.to_str().unwrap(),
-    ]);
+    let o = run_link(&path, &out, &[]);
     assert!(o.status.success(), "{}", stderr(&o));
     assert!(
         stderr(&o).contains("fields `street` and `postcode` move together"),
@@ -291,13 +258,7 @@ fn dependent_fields_are_flagged() {
         ),
     );
     let out = dir.path().join("out2");
-    let o = run(&[
-        "link",
-        "--config",
-        path.to_str().unwrap(),
-        "--out",
-        out.to_str().unwrap(),
-    ]);
+    let o = run_link(&path, &out, &[]);
     assert!(o.status.success(), "{}", stderr(&o));
     assert!(!stderr(&o).contains("move together"), "{}", stderr(&o));
     let (head, links) = read_csv(&out.join("links.csv"));
@@ -325,14 +286,7 @@ fn labelled_pairs_and_random_pair_u() {
     let cfg = format!("{base}\n[model]\nlabelled = \"labelled.csv\"\nu_from = \"random\"\n");
     let path = write(dir.path(), "known.toml", &cfg);
     let out = dir.path().join("out");
-    let o = run(&[
-        "link",
-        "--config",
-        path.to_str().unwrap(),
-        "--out",
-        out.to_str().unwrap(),
-        "--quiet",
-    ]);
+    let o = run_link(&path, &out, &["--quiet"]);
     assert!(o.status.success(), "{}", stderr(&o));
     let (_, links) = read_csv(&out.join("links.csv"));
     let (precision, recall) = precision_recall(&links, &truth());
@@ -345,14 +299,7 @@ fn labelled_pairs_and_random_pair_u() {
         "labelled.csv",
         "left_id,right_id\nL0000001,NOPE\n",
     );
-    let o = run(&[
-        "link",
-        "--config",
-        path.to_str().unwrap(),
-        "--out",
-        out.to_str().unwrap(),
-        "--quiet",
-    ]);
+    let o = run_link(&path, &out, &["--quiet"]);
     assert_eq!(o.status.code(), Some(1));
     let e = stderr(&o);
     assert!(

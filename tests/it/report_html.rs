@@ -5,14 +5,7 @@ use std::path::Path;
 use std::process::Command;
 
 fn link(config: &Path, out: &Path) {
-    let o = run(&[
-        "link",
-        "--config",
-        config.to_str().unwrap(),
-        "--out",
-        out.to_str().unwrap(),
-        "--quiet",
-    ]);
+    let o = run_link(config, out, &["--quiet"]);
     assert!(o.status.success(), "{}", stderr(&o));
 }
 
