@@ -380,25 +380,26 @@ pub fn read_scored_pairs_from(bytes: &[u8], label: &Path) -> Result<ScoredPairs>
     };
     let (li, ri, wi) = (col("left_id")?, col("right_id")?, col("weight")?);
     let mut out = ScoredPairs::default();
-    let mut lmap: HashMap<String, u32> = HashMap::new();
-    let mut rmap: HashMap<String, u32> = HashMap::new();
-    let mut seen: HashMap<(u32, u32), u64> = HashMap::new();
+    let mut lmap = IdMap::default();
+    let mut rmap = IdMap::default();
+    // (pair key, line) of every row; duplicates are found by sorting once at the end.
+    let mut keys: Vec<(u64, u64)> = Vec::new();
     let mut record = csv::ByteRecord::new();
     let mut lines_at = LineCounter::default();
     while let Some(line) =
         next_row(&mut rdr, &mut record, data, &mut lines_at, names.len()).map_err(at)?
     {
-        let text = |i: usize, c: &str| -> Result<String> {
+        let text = |i: usize, c: &str| -> Result<&str> {
             let raw = record.get(i).unwrap_or(b"");
             let s = std::str::from_utf8(raw).map_err(|_| at(not_utf8(line, c)))?;
-            Ok(s.trim().to_string())
+            Ok(s.trim())
         };
         let (l, r, w) = (
             text(li, "left_id")?,
             text(ri, "right_id")?,
             text(wi, "weight")?,
         );
-        for (v, c) in [(&l, "left_id"), (&r, "right_id")] {
+        for (v, c) in [(l, "left_id"), (r, "right_id")] {
             if v.is_empty() {
                 return Err(at(Error::input("empty id").with_line(line).with_column(c)));
             }
@@ -413,26 +414,43 @@ pub fn read_scored_pairs_from(bytes: &[u8], label: &Path) -> Result<ScoredPairs>
                 .with_line(line)
                 .with_column("weight")));
         }
-        let intern = |map: &mut HashMap<String, u32>, ids: &mut Vec<String>, v: String| -> u32 {
-            let next = ids.len() as u32;
-            *map.entry(v.clone()).or_insert_with(|| {
-                ids.push(v);
-                next
-            })
-        };
-        let a = intern(&mut lmap, &mut out.left_ids, l);
-        let b = intern(&mut rmap, &mut out.right_ids, r);
-        if let Some(first) = seen.insert((a, b), line) {
-            return Err(at(Error::input(format!(
-                "duplicate pair (first given on line {first})"
-            ))
-            .with_line(line)));
-        }
+        let a = lmap.intern(l, &mut out.left_ids);
+        let b = rmap.intern(r, &mut out.right_ids);
+        keys.push(((a as u64) << 32 | b as u64, line));
         out.left.push(a);
         out.right.push(b);
         out.weight.push(weight);
     }
+    // The earliest line that repeats a pair given before.
+    keys.sort_unstable();
+    let repeat = keys
+        .windows(2)
+        .filter(|k| k[0].0 == k[1].0)
+        .min_by_key(|k| k[1].1);
+    if let Some(k) = repeat {
+        return Err(at(Error::input(format!(
+            "duplicate pair (first given on line {})",
+            k[0].1
+        ))
+        .with_line(k[1].1)));
+    }
     Ok(out)
+}
+
+/// Ids interned in first-seen order (a fast, fixed-seed hash: the ids come from a local file).
+#[derive(Default)]
+struct IdMap(HashMap<Box<str>, u32, foldhash::fast::FixedState>);
+
+impl IdMap {
+    fn intern(&mut self, id: &str, ids: &mut Vec<String>) -> u32 {
+        if let Some(&k) = self.0.get(id) {
+            return k;
+        }
+        let k = ids.len() as u32;
+        ids.push(id.to_string());
+        self.0.insert(id.into(), k);
+        k
+    }
 }
 
 /// Reads known pairs (`left_id,right_id`, other columns ignored) with the line of each.
