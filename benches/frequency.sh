@@ -1,0 +1,45 @@
+#!/usr/bin/env bash
+# Value-frequency weighting on synth data (issue 4): F1 of `dovetail link` with
+# `frequency = true` on the given fields against the same run without, per noise level and
+# seed. Usage: bash benches/frequency.sh [rows] [fields]   (defaults: 3000, surname)
+# Needs python3 (standard library only) to edit the config and score the links.
+set -euo pipefail
+cd "$(dirname "$0")/.."
+cargo build --release --quiet
+rows=${1:-3000}
+fields=${2:-surname}
+work=$(mktemp -d)
+trap 'rm -rf "$work"' EXIT
+for noise in 0.2 0.5 0.8; do
+  for seed in 5 6; do
+    d="$work/n${noise}_s${seed}"
+    target/release/dovetail synth --rows "$rows" --noise "$noise" --seed "$seed" --out "$d" >/dev/null
+    python3 - "$d" "$fields" "$noise" "$seed" <<'PY'
+import csv, re, subprocess, sys
+d, fields, noise, seed = sys.argv[1], sys.argv[2].split(","), sys.argv[3], sys.argv[4]
+base = open(d + "/config.toml").read()
+truth = {(r["left_id"], r["right_id"]) for r in csv.DictReader(open(d + "/truth.csv"))}
+
+def with_frequency(text):
+    parts = text.split("[[field]]")
+    for i, p in enumerate(parts):
+        m = re.search(r'name = "(\w+)"', p)
+        if m and m.group(1) in fields:
+            parts[i] = p.replace("\nmethod", "\nfrequency = true\nmethod", 1)
+    return "[[field]]".join(parts)
+
+scores = []
+for on in (False, True):
+    cfg = f"{d}/config_{int(on)}.toml"
+    open(cfg, "w").write(with_frequency(base) if on else base)
+    out = f"{d}/out_{int(on)}"
+    subprocess.run(["target/release/dovetail", "link", "--config", cfg, "--out", out, "--quiet"], check=True)
+    links = {(r["left_id"], r["right_id"]) for r in csv.DictReader(open(out + "/links.csv"))}
+    tp = len(links & truth)
+    p, r = tp / max(1, len(links)), tp / len(truth)
+    scores.append((p, r, 2 * p * r / (p + r)))
+(p0, r0, f0), (p1, r1, f1) = scores
+print(f"noise {noise} seed {seed}: off P {p0:.4f} R {r0:.4f} F1 {f0:.4f} | on P {p1:.4f} R {r1:.4f} F1 {f1:.4f} | change {f1 - f0:+.4f}")
+PY
+  done
+done
