@@ -145,35 +145,41 @@ where
 /// `left[i]`, `right[i]`, `weight[i]` describe pair i; indices need not be dense, and a pair
 /// listed twice is allowed (the better copy wins).
 pub fn max_weight_matching(n_left: usize, left: &[u32], right: &[u32], weight: &[f64]) -> Matching {
-    solve(n_left, left, right, weight, Scheme::default())
+    solve(n_left, left, right, weight, Variants::default())
 }
 
 /// Which variant of each step a component uses; none changes the result, only the speed.
 /// Tests force each variant on small graphs.
 #[derive(Debug, Clone, Copy)]
-struct Scheme {
+struct Variants {
     /// Components with this many left records or more bid in rounds.
     rounds_min_left: usize,
     /// A component is dense (list frontier) when pairs x dense_share >= left x right.
     dense_share: usize,
 }
 
-impl Default for Scheme {
+impl Default for Variants {
     fn default() -> Self {
-        Scheme {
+        Variants {
             rounds_min_left: ROUNDS_MIN_LEFT,
             dense_share: DENSE_SHARE,
         }
     }
 }
 
-/// [`max_weight_matching`] with the variants chosen by `scheme`.
-fn solve(n_left: usize, left: &[u32], right: &[u32], weight: &[f64], scheme: Scheme) -> Matching {
+/// [`max_weight_matching`] with the given variants.
+fn solve(
+    n_left: usize,
+    left: &[u32],
+    right: &[u32],
+    weight: &[f64],
+    variants: Variants,
+) -> Matching {
     let positive = |i: usize| weight[i] > 0.0;
     let comps = components(n_left, left, right, positive);
     let solved: Vec<(Vec<usize>, usize)> = (0..comps.pairs.len())
         .into_par_iter()
-        .map(|c| solve_component(&comps, c, left, right, weight, scheme))
+        .map(|c| solve_component(&comps, c, left, right, weight, variants))
         .collect();
     let mut chosen: Vec<usize> = solved.iter().flat_map(|(c, _)| c.iter().copied()).collect();
     chosen.sort_unstable();
@@ -269,7 +275,7 @@ fn solve_component(
     left: &[u32],
     right: &[u32],
     weight: &[f64],
-    scheme: Scheme,
+    variants: Variants,
 ) -> (Vec<usize>, usize) {
     let pairs = &comps.pairs[c];
     let size = (comps.sizes[c].0 + comps.sizes[c].1) as usize;
@@ -277,8 +283,8 @@ fn solve_component(
         return (pairs.to_vec(), size);
     }
     let g = localise(comps, c, left, right, weight);
-    let in_rounds = g.n_left >= scheme.rounds_min_left;
-    let dense = g.arcs.len().saturating_mul(scheme.dense_share) >= g.n_left * g.n_right;
+    let in_rounds = g.n_left >= variants.rounds_min_left;
+    let dense = g.arcs.len().saturating_mul(variants.dense_share) >= g.n_left * g.n_right;
     let mate = hungarian(&g, in_rounds, dense);
     let chosen = mate
         .iter()
@@ -666,6 +672,20 @@ const AHEAD_ROW: usize = 24;
 const AHEAD_ARCS: usize = 12;
 const AHEAD_PRICES: usize = 4;
 
+/// Prefetches for the records `upcoming(j)` places ahead in the queue: row bounds
+/// [`AHEAD_ROW`] ahead, arcs [`AHEAD_ARCS`] ahead, prices [`AHEAD_PRICES`] ahead.
+fn prefetch_ahead(g: &Local, z: &[f64], upcoming: impl Fn(usize) -> Option<u32>) {
+    if let Some(f) = upcoming(AHEAD_ROW) {
+        prefetch_row(g, f as usize);
+    }
+    if let Some(f) = upcoming(AHEAD_ARCS) {
+        prefetch_arcs(g, f as usize);
+    }
+    if let Some(f) = upcoming(AHEAD_PRICES) {
+        prefetch_prices(g, z, f as usize);
+    }
+}
+
 /// Detects a stalled bidding phase: a few records bidding on and on (a price war, or a long
 /// chain of displacements looking for the last free right records). Once the bids since the
 /// queue last reached a new low exceed the component's left records, the remaining records
@@ -707,15 +727,7 @@ fn bid_in_turn(g: &Local, st: &mut Prices, budget: &mut usize, deferred: &mut Ve
             return;
         }
         *budget -= 1;
-        if let Some(&f) = queue.get(AHEAD_ROW) {
-            prefetch_row(g, f as usize);
-        }
-        if let Some(&f) = queue.get(AHEAD_ARCS) {
-            prefetch_arcs(g, f as usize);
-        }
-        if let Some(&f) = queue.get(AHEAD_PRICES) {
-            prefetch_prices(g, st.z, f as usize);
-        }
+        prefetch_ahead(g, st.z, |k| queue.get(k).copied());
         let offer = best_two(g, st.z, a as usize);
         match apply(g, st, a as usize, offer) {
             Outcome::Settled | Outcome::Lost => {}
@@ -753,15 +765,7 @@ fn bid_in_rounds(g: &Local, st: &mut Prices, budget: &mut usize, deferred: &mut 
             .zip(queue.par_chunks(ROUND_CHUNK))
             .for_each(|(out, ids)| {
                 for (k, &a) in ids.iter().enumerate() {
-                    if let Some(&f) = ids.get(k + AHEAD_ROW) {
-                        prefetch_row(g, f as usize);
-                    }
-                    if let Some(&f) = ids.get(k + AHEAD_ARCS) {
-                        prefetch_arcs(g, f as usize);
-                    }
-                    if let Some(&f) = ids.get(k + AHEAD_PRICES) {
-                        prefetch_prices(g, z, f as usize);
-                    }
+                    prefetch_ahead(g, z, |j| ids.get(k + j).copied());
                     out[k] = best_two(g, z, a as usize);
                 }
             });
@@ -824,11 +828,11 @@ mod tests {
     use proptest::prelude::*;
 
     /// Every combination of variants: one record at a time or in rounds, heap or list.
-    fn schemes() -> Vec<Scheme> {
+    fn all_variants() -> Vec<Variants> {
         let mut out = Vec::new();
         for rounds_min_left in [usize::MAX, 0] {
             for dense_share in [0, usize::MAX / 1_000_000] {
-                out.push(Scheme {
+                out.push(Variants {
                     rounds_min_left,
                     dense_share,
                 });
@@ -886,8 +890,8 @@ mod tests {
             let w: Vec<f64> = edges.iter().map(|e| if e.3 { e.2 as f64 } else { e.2 as f64 * 0.37 + 0.011 * e.0 as f64 }).collect();
             let want = brute_force(&left, &right, &w);
             // Every variant of the steps.
-            for scheme in schemes() {
-                let m = solve(6, &left, &right, &w, scheme);
+            for variants in all_variants() {
+                let m = solve(6, &left, &right, &w, variants);
                 prop_assert!(is_matching(&m, &left, &right, &w));
                 prop_assert!((m.total - want).abs() < 1e-9, "got {} want {}", m.total, want);
             }
@@ -916,12 +920,12 @@ mod tests {
             let n_left = case["n_left"].as_u64().unwrap() as usize;
             let want = case["optimum"].as_f64().unwrap();
             let tol = 1e-9 * want.abs().max(1.0);
-            for scheme in schemes() {
-                let m = solve(n_left, &l, &r, &w, scheme);
+            for variants in all_variants() {
+                let m = solve(n_left, &l, &r, &w, variants);
                 assert!(is_matching(&m, &l, &r, &w), "case {k}");
                 assert!(
                     (m.total - want).abs() <= tol,
-                    "case {k} ({}), {scheme:?}: {} vs {want}",
+                    "case {k} ({}), {variants:?}: {} vs {want}",
                     case["law"],
                     m.total
                 );
@@ -1020,19 +1024,19 @@ mod tests {
             }
         }
         // Integer weights: many ties, so any dependence on the order of work would show.
-        for scheme in schemes() {
+        for variants in all_variants() {
             let run = |threads| {
                 rayon::ThreadPoolBuilder::new()
                     .num_threads(threads)
                     .build()
                     .unwrap()
-                    .install(|| solve(n, &l, &r, &w, scheme))
+                    .install(|| solve(n, &l, &r, &w, variants))
             };
             assert_eq!(run(1), run(2));
             assert_eq!(run(1), run(3));
         }
         // The two frontiers settle records in the same order, so they pick the same optimum.
-        let s = schemes();
+        let s = all_variants();
         assert_eq!(solve(n, &l, &r, &w, s[0]), solve(n, &l, &r, &w, s[1]));
         assert_eq!(solve(n, &l, &r, &w, s[2]), solve(n, &l, &r, &w, s[3]));
     }
