@@ -195,6 +195,10 @@ pub struct ModelSpec {
     /// Random pairs drawn for `u_from = "random"` (default 200,000).
     #[serde(default)]
     pub random_pairs: Option<usize>,
+    /// Fit the laws apart for each set of passes that found a pair (default true; it only
+    /// applies with two or more passes and neither m nor u held fixed).
+    #[serde(default = "default_true")]
+    pub per_pass: bool,
 }
 
 /// Feasibility settings.
@@ -226,6 +230,9 @@ fn default_min_confidence() -> f64 {
 }
 fn default_review_band() -> [f64; 2] {
     [0.2, 0.9]
+}
+fn default_true() -> bool {
+    true
 }
 fn default_max_iterations() -> usize {
     500
@@ -272,6 +279,7 @@ impl Default for ModelSpec {
             labelled_use: None,
             u_from: None,
             random_pairs: None,
+            per_pass: true,
         }
     }
 }
@@ -356,6 +364,7 @@ const MODEL_KEYS: &[&str] = &[
     "labelled_use",
     "u_from",
     "random_pairs",
+    "per_pass",
 ];
 const ASSESS_KEYS: &[&str] = &[
     "feasible_margin",

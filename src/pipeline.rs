@@ -10,7 +10,7 @@ use crate::config::Config;
 use crate::error::{Error, Result};
 use crate::io::{self, Encoding, ReadSpec, Table};
 use crate::matching::{self, Matching};
-use crate::model::{self, EmOptions, Fit, ValueFrequency};
+use crate::model::{self, EmOptions, Fit, Strata, ValueFrequency};
 use crate::records::{self, Records, MISSING};
 use crate::reliability::confidence::{self, BpOptions, Marginals};
 use crate::reliability::forecast::{self, ForecastOptions};
@@ -56,6 +56,9 @@ pub struct Prepared {
     pub plain_fit: Fit,
     /// Dependence between every pair of fields within each class.
     pub dependence: Vec<model::Dependence>,
+    /// One fit per set of passes that found a pair, when there are several such sets; the
+    /// pairs' weights come from these, the reported laws are `fit`.
+    pub strata: Option<Strata>,
     /// Value-frequency tables of fields with `frequency = true`.
     pub frequency: Vec<Option<ValueFrequency>>,
     /// Per pair: the Fellegi–Sunter weight (sum of log-likelihood ratios).
@@ -360,7 +363,9 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
     // The fit and its one-to-one refinement use field-level weights; value-frequency tables
     // are then estimated from the refined link probabilities of the candidate pairs.
     let no_frequency: Vec<Option<ValueFrequency>> = vec![None; records.fields.len()];
-    let (_, mut theta) = pair_weights(&records, &cands, &comparison, &fit, &no_frequency);
+    let (_, mut theta) = pair_weights(&records, &cands, &comparison, &fit, None, &no_frequency);
+    let mut strata = Some(Strata::new(&cands.passes))
+        .filter(|s| config.model.per_pass && s.masks.len() > 1 && !known.any_fixed());
     let plain_fit = fit.clone();
     let mut fit = fit;
     let mut link_prob: Vec<f64> = theta.iter().map(|&t| confidence::pairwise(t)).collect();
@@ -374,12 +379,27 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
             tolerance: 1e-4,
             theta_cutoff: -9.0,
         };
-        for _ in 0..ONE_TO_ONE_ROUNDS {
+        // The pooled refinement first; the strata start from its link probabilities (from
+        // plain EM's, a stratum holding few false pairs can take true pairs' leftover mass
+        // for its false law and never recover).
+        let rounds = ONE_TO_ONE_ROUNDS + if strata.is_some() { STRATA_ROUNDS } else { 0 };
+        for round in 0..rounds {
             let marg =
                 confidence::marginals(records.n_left(), &cands.left, &cands.right, &theta, &rough);
             gamma = pattern_shares(&comparison, &counts, &marg.p);
             fit = model::fit_from_shares(&counts, &gamma, &fit, &known);
-            (_, theta) = pair_weights(&records, &cands, &comparison, &fit, &no_frequency);
+            let stratified = round >= ONE_TO_ONE_ROUNDS;
+            if let (Some(s), true) = (strata.as_mut(), stratified) {
+                s.refit(&comparison, &marg.p, &fit);
+            }
+            (_, theta) = pair_weights(
+                &records,
+                &cands,
+                &comparison,
+                &fit,
+                strata.as_ref().filter(|_| stratified),
+                &no_frequency,
+            );
             link_prob = marg.p;
         }
     }
@@ -396,20 +416,45 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
             ));
         }
     }
+    let level_weights: Vec<Vec<Vec<f64>>> = match &strata {
+        Some(s) => s.fits.iter().map(Fit::level_weights).collect(),
+        None => vec![fit.level_weights()],
+    };
+    let fit_of = |i: usize| match &strata {
+        Some(s) => (s.fit_of(i), &level_weights[s.of_pair[i] as usize]),
+        None => (&fit, &level_weights[0]),
+    };
     let frequency: Vec<Option<ValueFrequency>> = records
         .fields
         .iter()
         .enumerate()
         .map(|(k, fv)| {
             fv.spec.frequency.then(|| {
-                let agreeing = (0..cands.len())
+                let agreeing: Vec<model::Agreeing> = (0..cands.len())
                     .filter(|&i| comparison.level(comparison.codes[i], k) == 0)
-                    .map(|i| (fv.left[cands.left[i] as usize], link_prob[i]));
-                model::value_frequency_on_candidates(&fv.left_counts, &fv.right_counts, agreeing)
+                    .map(|i| {
+                        let (f, lw) = fit_of(i);
+                        model::Agreeing {
+                            value: fv.left[cands.left[i] as usize],
+                            link: link_prob[i],
+                            other: f.pattern_weight(&comparison.levels_of(comparison.codes[i]))
+                                - lw[k][0],
+                            stratum: strata.as_ref().map_or(0, |s| s.of_pair[i]),
+                        }
+                    })
+                    .collect();
+                model::value_frequency_on_candidates(&fv.left_counts, &fv.right_counts, &agreeing)
             })
         })
         .collect();
-    let (weight, theta) = pair_weights(&records, &cands, &comparison, &fit, &frequency);
+    let (weight, theta) = pair_weights(
+        &records,
+        &cands,
+        &comparison,
+        &fit,
+        strata.as_ref(),
+        &frequency,
+    );
     let names: Vec<String> = config.field.iter().map(|f| f.name.clone()).collect();
     let split: Vec<Option<f64>> = frequency
         .iter()
@@ -451,6 +496,7 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
         fit,
         plain_fit,
         dependence,
+        strata,
         frequency,
         weight,
         theta,
@@ -462,6 +508,9 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
 
 /// Rounds of the one-to-one refinement of the fit (see [`model::fit_from_shares`]).
 pub const ONE_TO_ONE_ROUNDS: usize = 3;
+
+/// Further rounds that refit each stratum of pass sets (see [`model::Strata`]).
+pub const STRATA_ROUNDS: usize = 2;
 
 /// Mean link probability of the pairs of each pattern, in the order of `counts`.
 fn pattern_shares(comparison: &Comparison, counts: &PatternCounts, p: &[f64]) -> Vec<f64> {
@@ -486,51 +535,68 @@ pub fn score(prep: &Prepared, cands: &Candidates) -> Vec<f64> {
         cands,
         &comparison,
         &prep.fit,
+        None,
         &prep.frequency,
     )
     .1
 }
 
 /// Per pair: the weight (sum of per-field log-likelihood ratios, value-frequency adjusted) and
-/// theta = weight + ln(p / (1 - p)).
+/// theta = weight + ln(p / (1 - p)), from the pair's stratum fit when `strata` is given.
 pub fn pair_weights(
     records: &Records,
     cands: &Candidates,
     comparison: &Comparison,
     fit: &Fit,
+    strata: Option<&Strata>,
     frequency: &[Option<ValueFrequency>],
 ) -> (Vec<f64>, Vec<f64>) {
     use rayon::prelude::*;
-    let mut by_code: HashMap<u64, f64> = HashMap::new();
-    for &code in &comparison.codes {
-        by_code
-            .entry(code)
-            .or_insert_with(|| fit.pattern_weight(&comparison.levels_of(code)));
-    }
-    let c = if fit.p > 0.0 && fit.p < 1.0 {
-        fit.prior_log_odds()
-    } else {
-        0.0
+    let fits: Vec<&Fit> = match strata {
+        Some(s) => s.fits.iter().collect(),
+        None => vec![fit],
     };
-    let weight: Vec<f64> = (0..cands.len())
+    let stratum = |i: usize| strata.map_or(0, |s| s.of_pair[i] as usize);
+    let mut by_code: HashMap<(usize, u64), f64> = HashMap::new();
+    for (i, &code) in comparison.codes.iter().enumerate() {
+        let g = stratum(i);
+        by_code
+            .entry((g, code))
+            .or_insert_with(|| fits[g].pattern_weight(&comparison.levels_of(code)));
+    }
+    let prior: Vec<f64> = fits
+        .iter()
+        .map(|f| {
+            if f.p > 0.0 && f.p < 1.0 {
+                f.prior_log_odds()
+            } else {
+                0.0
+            }
+        })
+        .collect();
+    let level_weights: Vec<Vec<Vec<f64>>> = fits.iter().map(|f| f.level_weights()).collect();
+    let (weight, theta): (Vec<f64>, Vec<f64>) = (0..cands.len())
         .into_par_iter()
         .map(|i| {
             let code = comparison.codes[i];
-            let mut w = by_code[&code];
+            let g = stratum(i);
+            let base = by_code[&(g, code)];
+            let mut w = base;
             for (k, vf) in frequency.iter().enumerate() {
                 if let Some(vf) = vf {
-                    if comparison.level(code, k) == 0 {
+                    let level = comparison.level(code, k);
+                    if level == 0 {
                         let v = records.fields[k].left[cands.left[i] as usize];
                         if v != MISSING {
-                            w += vf.adjustment[v as usize];
+                            let other = base - level_weights[g][k][0];
+                            w += vf.adjustment(v as usize, strata.map(|_| g), other);
                         }
                     }
                 }
             }
-            w
+            (w, w + prior[g])
         })
-        .collect();
-    let theta = weight.iter().map(|w| w + c).collect();
+        .unzip();
     (weight, theta)
 }
 

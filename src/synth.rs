@@ -118,12 +118,13 @@ fn zipf_cumulative(n: usize, s: f64) -> Vec<f64> {
         .collect()
 }
 
-fn pick<'a>(rng: &mut Rng, items: &'a [&'a str]) -> &'a str {
-    items[rng.below(items.len())]
-}
+/// Zipf exponent of the given-name shares: the commonest name is about one in twenty, as in
+/// real name stocks, where a few names are very common (the reason value-frequency weighting
+/// exists).
+const GIVEN_ZIPF: f64 = 0.7;
 
-fn given_name(rng: &mut Rng) -> String {
-    format!("{}{}", pick(rng, GIVEN_HEADS), pick(rng, GIVEN_TAILS))
+fn given_name(rng: &mut Rng, stock: &[String], zipf: &[f64]) -> String {
+    stock[rng.pick_cumulative(zipf)].clone()
 }
 
 fn random_birth(rng: &mut Rng, lo: i32, hi: i32) -> (i32, u8, u8) {
@@ -163,6 +164,12 @@ fn population(rng: &mut Rng, n: usize) -> Vec<Person> {
     // exponent 0.75 make the commonest surname a share of one to a few in a hundred.
     surnames.truncate((n / 4).clamp(500, surnames.len()));
     let zipf = zipf_cumulative(surnames.len(), 0.75);
+    let mut given_stock: Vec<String> = GIVEN_HEADS
+        .iter()
+        .flat_map(|h| GIVEN_TAILS.iter().map(move |t| format!("{h}{t}")))
+        .collect();
+    rng.shuffle(&mut given_stock);
+    let given_zipf = zipf_cumulative(given_stock.len(), GIVEN_ZIPF);
     let mut people = Vec::with_capacity(n + 6);
     while people.len() < n {
         let surname = surnames[rng.pick_cumulative(&zipf)].clone();
@@ -174,7 +181,14 @@ fn population(rng: &mut Rng, n: usize) -> Vec<Person> {
         let size = 1 + rng.below(4) + usize::from(rng.chance(0.1));
         let parent_birth = random_birth(rng, 1940, 1985);
         let mut twin: Option<(i32, u8, u8)> = None;
+        let mut names: Vec<String> = Vec::with_capacity(size);
         for member in 0..size {
+            // Members of one household have different given names.
+            let mut given = given_name(rng, &given_stock, &given_zipf);
+            while names.contains(&given) {
+                given = given_name(rng, &given_stock, &given_zipf);
+            }
+            names.push(given.clone());
             let birth = if member < 2 {
                 let (y, _, _) = parent_birth;
                 random_birth(rng, y - 3, y + 3)
@@ -191,7 +205,7 @@ fn population(rng: &mut Rng, n: usize) -> Vec<Person> {
                 surname.clone()
             };
             people.push(Person {
-                given: given_name(rng),
+                given,
                 surname: own_surname,
                 birth,
                 sex: if rng.chance(0.5) { 'F' } else { 'M' },

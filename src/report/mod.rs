@@ -113,6 +113,20 @@ pub struct FitSummary {
     pub label_switch_corrected: bool,
     /// Distinct agreement patterns.
     pub patterns: usize,
+    /// The fits of each set of passes that found a pair (empty when the laws are pooled: one
+    /// pass, `per_pass = false`, or m or u held fixed); pairs are weighed with their set's laws.
+    pub per_pass: Vec<PassSetFit>,
+}
+
+/// One set of passes' own fit in summary.json.
+#[derive(Debug, Serialize)]
+pub struct PassSetFit {
+    /// The passes that found these pairs (all of them, none other).
+    pub found_by: Vec<String>,
+    /// Candidate pairs in the set.
+    pub pairs: usize,
+    /// Estimated share of them that are true.
+    pub p: f64,
 }
 
 /// summary.json.
@@ -236,6 +250,33 @@ fn manifest(prep: &Prepared) -> Manifest {
     }
 }
 
+fn per_pass_fits(prep: &Prepared) -> Vec<PassSetFit> {
+    let Some(strata) = &prep.strata else {
+        return Vec::new();
+    };
+    let mut pairs = vec![0usize; strata.masks.len()];
+    for &g in &strata.of_pair {
+        pairs[g as usize] += 1;
+    }
+    strata
+        .masks
+        .iter()
+        .zip(&strata.fits)
+        .zip(pairs)
+        .map(|((&mask, fit), pairs)| PassSetFit {
+            found_by: prep
+                .pass_stats
+                .iter()
+                .enumerate()
+                .filter(|(k, _)| mask & (1 << k) != 0)
+                .map(|(_, s)| s.name.clone())
+                .collect(),
+            pairs,
+            p: fit.p,
+        })
+        .collect()
+}
+
 fn summary(
     prep: &Prepared,
     a: &Assessment,
@@ -340,6 +381,7 @@ fn summary(
             converged: prep.fit.converged,
             label_switch_corrected: prep.fit.switched,
             patterns: prep.counts.patterns.len(),
+            per_pass: per_pass_fits(prep),
         },
         fields,
         passes,
