@@ -416,34 +416,16 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
             ));
         }
     }
-    let level_weights: Vec<Vec<Vec<f64>>> = match &strata {
-        Some(s) => s.fits.iter().map(Fit::level_weights).collect(),
-        None => vec![fit.level_weights()],
-    };
-    let fit_of = |i: usize| match &strata {
-        Some(s) => (s.fit_of(i), &level_weights[s.of_pair[i] as usize]),
-        None => (&fit, &level_weights[0]),
-    };
     let frequency: Vec<Option<ValueFrequency>> = records
         .fields
         .iter()
         .enumerate()
         .map(|(k, fv)| {
             fv.spec.frequency.then(|| {
-                let agreeing: Vec<model::Agreeing> = (0..cands.len())
+                let agreeing = (0..cands.len())
                     .filter(|&i| comparison.level(comparison.codes[i], k) == 0)
-                    .map(|i| {
-                        let (f, lw) = fit_of(i);
-                        model::Agreeing {
-                            value: fv.left[cands.left[i] as usize],
-                            link: link_prob[i],
-                            other: f.pattern_weight(&comparison.levels_of(comparison.codes[i]))
-                                - lw[k][0],
-                            stratum: strata.as_ref().map_or(0, |s| s.of_pair[i]),
-                        }
-                    })
-                    .collect();
-                model::value_frequency_on_candidates(&fv.left_counts, &fv.right_counts, &agreeing)
+                    .map(|i| (fv.left[cands.left[i] as usize], link_prob[i]));
+                model::value_frequency_on_candidates(&fv.left_counts, &fv.right_counts, agreeing)
             })
         })
         .collect();
@@ -574,22 +556,18 @@ pub fn pair_weights(
             }
         })
         .collect();
-    let level_weights: Vec<Vec<Vec<f64>>> = fits.iter().map(|f| f.level_weights()).collect();
     let (weight, theta): (Vec<f64>, Vec<f64>) = (0..cands.len())
         .into_par_iter()
         .map(|i| {
             let code = comparison.codes[i];
             let g = stratum(i);
-            let base = by_code[&(g, code)];
-            let mut w = base;
+            let mut w = by_code[&(g, code)];
             for (k, vf) in frequency.iter().enumerate() {
                 if let Some(vf) = vf {
-                    let level = comparison.level(code, k);
-                    if level == 0 {
+                    if comparison.level(code, k) == 0 {
                         let v = records.fields[k].left[cands.left[i] as usize];
                         if v != MISSING {
-                            let other = base - level_weights[g][k][0];
-                            w += vf.adjustment(v as usize, strata.map(|_| g), other);
+                            w += vf.adjustment[v as usize];
                         }
                     }
                 }
