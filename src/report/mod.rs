@@ -330,8 +330,11 @@ fn summary(
             } else {
                 Some(conf / l.links.len() as f64)
             };
-            let recall = if a.estimated_true_pairs > 0.0 {
-                Some((conf / a.estimated_true_pairs).min(1.0))
+            // The expected number of true pairs among the candidates under the same posterior
+            // (with value-frequency weights, the fit's p |C| is not on the confidences' scale).
+            let expected_true: f64 = l.confidence.p.iter().sum();
+            let recall = if expected_true > 0.0 {
+                Some((conf / expected_true).min(1.0))
             } else {
                 None
             };
