@@ -10,6 +10,10 @@
 //! feasibility assessment. Several deterministic starts are run and the best likelihood kept; a
 //! floor keeps every cell positive, and a guard swaps the classes when EM has put the
 //! agreeing pairs in u (label switching).
+//!
+//! Refinements on top: the M-step from given per-pattern link shares ([`fit_from_shares`],
+//! for the one-to-one refinement), one fit per set of blocking passes ([`Strata`]), and the
+//! per-value weights of value-frequency weighting ([`ValueFrequency`], from value counts).
 
 use crate::compare::{Comparison, PatternCounts, MISSING_LEVEL};
 use std::collections::HashMap;

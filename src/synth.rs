@@ -3,7 +3,8 @@
 //! The region, the Vale of Kessry, has towns, streets and a postcode scheme of our own
 //! (three letters for the town, four digits: "KSB 2041"). Names are built from syllables, so
 //! nobody real is described. People live in households (shared surname, address, postcode and
-//! landline), surnames follow a Zipf law, and some household members are twins: the confusions
+//! landline), surnames and given names follow Zipf laws (members of one household have
+//! different given names), and some household members are twins: the confusions
 //! real extracts have. The right table re-records a share of the left table's people with
 //! typing slips, day-month swaps, moves, missing values and case and accent variants.
 //!
