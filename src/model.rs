@@ -443,9 +443,9 @@ impl Strata {
             .collect();
     }
 
-    /// The fit that scores pair `i`.
-    pub fn fit_of(&self, i: usize) -> &Fit {
-        &self.fits[self.of_pair[i] as usize]
+    /// The stratum of pair `i` (an index into `masks` and `fits`).
+    pub fn stratum_of(&self, i: usize) -> usize {
+        self.of_pair[i] as usize
     }
 }
 
@@ -921,8 +921,8 @@ pub(crate) mod tests {
                 );
             }
         }
-        assert_eq!(strata.fit_of(0).p, strata.fits[0].p);
-        assert_eq!(strata.fit_of(7999).p, strata.fits[1].p);
+        assert_eq!(strata.stratum_of(0), 0);
+        assert_eq!(strata.stratum_of(7999), 1);
     }
 
     #[test]

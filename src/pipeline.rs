@@ -538,7 +538,7 @@ pub fn pair_weights(
         Some(s) => s.fits.iter().collect(),
         None => vec![fit],
     };
-    let stratum = |i: usize| strata.map_or(0, |s| s.of_pair[i] as usize);
+    let stratum = |i: usize| strata.map_or(0, |s| s.stratum_of(i));
     let mut by_code: HashMap<(usize, u64), f64> = HashMap::new();
     for (i, &code) in comparison.codes.iter().enumerate() {
         let g = stratum(i);
