@@ -1,9 +1,10 @@
 #!/usr/bin/env bash
 # Value-frequency weighting on synth data (issue 4): F1 of `dovetail link` with
 # `frequency = true` on the given fields against the same run without, per noise level and
-# seed. Usage: bash benches/frequency.sh [rows] [fields] [noise levels] [seeds]
-# (defaults: 20000, given,surname, "0.2 0.5 0.8 1.0", "5 6 7"). At 3,000 rows one link is
-# 0.0005 of F1, so small tables mostly measure luck.
+# seed. Usage: bash benches/frequency.sh [rows] [fields] [noise levels] [seeds] [twins]
+# (defaults: 20000, given,surname, "0.2 0.5 0.8 1.0", "5 6 7", synth's realistic twin rate;
+# twins 0.5 is the stress case with ten times the real share of twins). At 3,000 rows one
+# link is 0.0005 of F1, so small tables mostly measure luck.
 # Needs python3 (standard library only) to edit the config and score the links.
 set -euo pipefail
 cd "$(dirname "$0")/.."
@@ -12,12 +13,13 @@ rows=${1:-20000}
 fields=${2:-given,surname}
 noises=${3:-0.2 0.5 0.8 1.0}
 seeds=${4:-5 6 7}
+twins=${5:+--twins $5}
 work=$(mktemp -d)
 trap 'rm -rf "$work"' EXIT
 for noise in $noises; do
   for seed in $seeds; do
     d="$work/n${noise}_s${seed}"
-    target/release/dovetail synth --rows "$rows" --noise "$noise" --seed "$seed" --out "$d" >/dev/null
+    target/release/dovetail synth --rows "$rows" --noise "$noise" --seed "$seed" $twins --out "$d" >/dev/null
     python3 - "$d" "$fields" "$noise" "$seed" <<'PY'
 import csv, re, subprocess, sys
 d, fields, noise, seed = sys.argv[1], sys.argv[2].split(","), sys.argv[3], sys.argv[4]

@@ -22,6 +22,10 @@ pub struct Args {
     /// Seed; the same seed gives the same files.
     #[arg(long, default_value_t = 1)]
     seed: u64,
+    /// Chance that a child is the twin of the child born before it (the default is about the
+    /// real rate; 0.5 makes the household confusions ten times commoner, a stress case).
+    #[arg(long, default_value_t = synth::TWIN_CHANCE)]
+    twins: f64,
     /// Output folder.
     #[arg(long)]
     out: PathBuf,
@@ -31,9 +35,12 @@ pub fn run(args: Args) -> Result<ExitCode> {
     if args.rows == 0 {
         return Err(Error::config("--rows must be at least 1"));
     }
-    if !(0.0..=1.0).contains(&args.overlap) || !(0.0..=1.0).contains(&args.noise) {
+    if [args.overlap, args.noise, args.twins]
+        .iter()
+        .any(|v| !(0.0..=1.0).contains(v))
+    {
         return Err(Error::config(
-            "--overlap and --noise must lie within [0, 1]",
+            "--overlap, --noise and --twins must lie within [0, 1]",
         ));
     }
     let s = synth::generate(&SynthOptions {
@@ -41,6 +48,7 @@ pub fn run(args: Args) -> Result<ExitCode> {
         overlap: args.overlap,
         noise: args.noise,
         seed: args.seed,
+        twins: args.twins,
     });
     let mut out = OutputSet::new(&args.out)?;
     for (name, text) in [

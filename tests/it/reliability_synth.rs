@@ -3,7 +3,7 @@
 
 use dovetail::config::Config;
 use dovetail::pipeline::{self, Silent};
-use dovetail::synth::{generate, SynthOptions};
+use dovetail::synth::{generate, SynthOptions, TWIN_CHANCE};
 use std::collections::{HashMap, HashSet};
 use std::path::Path;
 
@@ -29,6 +29,7 @@ fn run_with(
         overlap: 0.7,
         noise,
         seed,
+        twins: TWIN_CHANCE,
     });
     std::fs::write(dir.join("left.csv"), &s.left_csv).unwrap();
     std::fs::write(dir.join("right.csv"), &s.right_csv).unwrap();

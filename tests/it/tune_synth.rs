@@ -3,7 +3,7 @@
 use crate::common::*;
 use dovetail::config::Config;
 use dovetail::pipeline::{self, Silent};
-use dovetail::synth::{generate, SynthOptions};
+use dovetail::synth::{generate, SynthOptions, TWIN_CHANCE};
 use dovetail::{block, tune};
 use std::collections::HashSet;
 
@@ -15,6 +15,7 @@ fn completeness_estimates_match_the_truth() {
         overlap: 0.7,
         noise: 0.4,
         seed: 12,
+        twins: TWIN_CHANCE,
     });
     std::fs::write(dir.path().join("left.csv"), &s.left_csv).unwrap();
     std::fs::write(dir.path().join("right.csv"), &s.right_csv).unwrap();
