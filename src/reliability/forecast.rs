@@ -32,6 +32,9 @@ pub struct ForecastOptions {
     pub seed: u64,
     /// Subsample to about this many pairs when the graph is larger.
     pub max_pairs: usize,
+    /// Added to the fit's ln(p / (1 - p)) to give the prior log odds the run links with (the
+    /// one-to-one prior's distance from the pairwise one; 0 for the pairwise prior).
+    pub prior_shift: f64,
 }
 
 /// The forecast.
@@ -149,7 +152,7 @@ pub fn forecast(
         return None;
     }
     let w = fit.level_weights();
-    let c = fit.prior_log_odds();
+    let c = fit.prior_log_odds() + opts.prior_shift;
     let m_draw = Sampler::new(&fit.m, &fit.m_missing, &w);
     let u_draw = Sampler::new(&fit.u, &fit.u_missing, &w);
     const CHUNK: usize = 4096;

@@ -113,6 +113,10 @@ pub struct FitSummary {
     pub label_switch_corrected: bool,
     /// Distinct agreement patterns.
     pub patterns: usize,
+    /// Prior log odds of a link under the one-to-one model, fitted so that the expected
+    /// number of links is the same before and after seeing the comparisons; pooled over the
+    /// passes (the sets of passes have their own in `per_pass`); null without candidates.
+    pub link_log_odds: Option<f64>,
     /// The fits of each set of passes that found a pair (empty when the laws are pooled: one
     /// pass, `per_pass = false`, or m or u held fixed); pairs are weighed with their set's laws.
     pub per_pass: Vec<PassSetFit>,
@@ -127,6 +131,8 @@ pub struct PassSetFit {
     pub pairs: usize,
     /// Estimated share of them that are true.
     pub p: f64,
+    /// The set's prior log odds of a link under the one-to-one model.
+    pub link_log_odds: f64,
 }
 
 /// summary.json.
@@ -263,7 +269,8 @@ fn per_pass_fits(prep: &Prepared) -> Vec<PassSetFit> {
         .iter()
         .zip(&strata.fits)
         .zip(pairs)
-        .map(|((&mask, fit), pairs)| PassSetFit {
+        .zip(&prep.link_log_odds)
+        .map(|(((&mask, fit), pairs), &link_log_odds)| PassSetFit {
             found_by: prep
                 .pass_stats
                 .iter()
@@ -273,6 +280,7 @@ fn per_pass_fits(prep: &Prepared) -> Vec<PassSetFit> {
                 .collect(),
             pairs,
             p: fit.p,
+            link_log_odds,
         })
         .collect()
 }
@@ -384,6 +392,7 @@ fn summary(
             converged: prep.fit.converged,
             label_switch_corrected: prep.fit.switched,
             patterns: prep.counts.patterns.len(),
+            link_log_odds: prep.pooled_link_log_odds,
             per_pass: per_pass_fits(prep),
         },
         fields,
