@@ -390,12 +390,7 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
     if !cands.is_empty() {
         // The refinement only needs shares per pattern, so a looser BP serves; the reported
         // confidences use the default settings.
-        let rough = BpOptions {
-            max_iterations: 40,
-            damping: 0.5,
-            tolerance: 1e-4,
-            theta_cutoff: -9.0,
-        };
+        let rough = REFINEMENT_BP;
         // The pooled refinement first; the strata start from its link probabilities (from
         // plain EM's, a stratum holding few false pairs can take true pairs' leftover mass
         // for its false law and never recover).
@@ -538,6 +533,14 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
     })
 }
 
+/// The looser BP of the one-to-one refinement and the link prior's fit.
+const REFINEMENT_BP: BpOptions = BpOptions {
+    max_iterations: 40,
+    damping: 0.5,
+    tolerance: 1e-4,
+    theta_cutoff: -9.0,
+};
+
 /// Rounds of the one-to-one refinement of the fit (see [`model::fit_from_shares`]).
 pub const ONE_TO_ONE_ROUNDS: usize = 3;
 
@@ -558,9 +561,52 @@ fn pattern_shares(comparison: &Comparison, counts: &PatternCounts, p: &[f64]) ->
         .collect()
 }
 
+/// Theta of every pair of another candidate set, with this run's pooled laws and
+/// value-frequency tables and a one-to-one link prior fitted on that set's graph (as many
+/// steps as the refinement's pooled rounds, from this run's pooled prior); also that prior
+/// log odds. `tune` links each scheme with it.
+pub fn score_one_to_one(prep: &Prepared, cands: &Candidates) -> (Vec<f64>, f64) {
+    let (weight, mut theta) = pooled_weights(prep, cands);
+    let mut link_log_odds = vec![prep
+        .pooled_link_log_odds
+        .unwrap_or_else(|| prep.fit.prior_log_odds())];
+    if cands.is_empty() {
+        return (theta, link_log_odds[0]);
+    }
+    let group = vec![0u32; cands.len()];
+    for _ in 0..ONE_TO_ONE_ROUNDS {
+        let marg = confidence::marginals(
+            prep.records.n_left(),
+            &cands.left,
+            &cands.right,
+            &theta,
+            &REFINEMENT_BP,
+        );
+        confidence::link_prior_step(
+            prep.records.n_left(),
+            &cands.left,
+            &cands.right,
+            &group,
+            &mut link_log_odds,
+            &marg.p,
+            &REFINEMENT_BP,
+        );
+        for (t, w) in theta.iter_mut().zip(&weight) {
+            *t = w + link_log_odds[0];
+        }
+    }
+    (theta, link_log_odds[0])
+}
+
 /// Theta (log posterior odds) of every pair of another candidate set, with this run's fitted
-/// laws and value-frequency tables (used by `tune`).
+/// laws and value-frequency tables and the pairwise prior ln(p / (1 - p)) (used by `tune`'s
+/// reference, a per-record posterior over all right records).
 pub fn score(prep: &Prepared, cands: &Candidates) -> Vec<f64> {
+    pooled_weights(prep, cands).1
+}
+
+/// Weights and pairwise-prior theta of another candidate set under the pooled laws.
+fn pooled_weights(prep: &Prepared, cands: &Candidates) -> (Vec<f64>, Vec<f64>) {
     let comparison = compare::compare(&prep.records, cands);
     pair_weights(
         &prep.records,
@@ -571,7 +617,6 @@ pub fn score(prep: &Prepared, cands: &Candidates) -> Vec<f64> {
         &prep.frequency,
         None,
     )
-    .1
 }
 
 /// Per pair: the weight (sum of per-field log-likelihood ratios, value-frequency adjusted) and

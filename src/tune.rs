@@ -14,7 +14,7 @@
 
 use crate::block::{self, Candidates, Pass};
 use crate::matching;
-use crate::pipeline::{score, Prepared};
+use crate::pipeline::{score, score_one_to_one, Prepared};
 use crate::reliability::forecast::{self, ForecastOptions};
 use crate::rng::Rng;
 use serde::Serialize;
@@ -136,7 +136,7 @@ pub fn evaluate(
             } else {
                 0.0
             };
-            let theta = score(prep, &cands);
+            let (theta, link_log_odds) = score_one_to_one(prep, &cands);
             let m = matching::max_weight_matching(nl, &cands.left, &cands.right, &theta);
             let fc = forecast::bracketed(
                 nl,
@@ -149,9 +149,7 @@ pub fn evaluate(
                     replicates: opts.replicates,
                     seed: opts.seed,
                     max_pairs: 2_000_000,
-                    // `score` weighs another candidate set with the pairwise prior
-                    // ln(p / (1 - p)): this run's one-to-one prior belongs to its own graph.
-                    prior_shift: 0.0,
+                    prior_shift: link_log_odds - prep.fit.prior_log_odds(),
                 },
             );
             let true_in_c = completeness * true_pairs_total;
