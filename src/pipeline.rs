@@ -70,7 +70,7 @@ pub struct Prepared {
     pub frequency: Vec<Option<ValueFrequency>>,
     /// Per pair: the Fellegi–Sunter weight (sum of log-likelihood ratios).
     pub weight: Vec<f64>,
-    /// Per pair: weight plus the log prior odds (the log posterior odds).
+    /// Per pair: weight plus the prior log odds of a link (the log posterior odds).
     pub theta: Vec<f64>,
     /// Per-field separation.
     pub separations: Vec<FieldSeparation>,
