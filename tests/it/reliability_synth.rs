@@ -120,8 +120,9 @@ impl Run {
 #[test]
 fn forecast_tracks_the_actual_mismatch_rate() {
     // The tolerance: within max(0.01, 0.3 x actual), over noise levels and field sets.
-    // Known miss, left out here: given name, surname and birth date alone at noise 0.8 give a
-    // forecast of 1.2% against 2.2% measured (both bracketing laws are too optimistic there).
+    // Given name, surname and birth date alone at noise 0.8 were a known miss with the
+    // pairwise prior (forecast 1.2% against 2.2% measured); with the one-to-one link prior
+    // the forecast is 0.37% against 0.53%.
     let dir = tempfile::tempdir().unwrap();
     let one_pass = "[[block]]\nkeys = [\"surname:soundex\", \"birth:year\"]\n\n";
     for (noise, drop, blocks) in [
@@ -129,6 +130,7 @@ fn forecast_tracks_the_actual_mismatch_rate() {
         (0.6, &[][..], None),
         (0.4, &["phone", "sex"][..], None),
         (0.5, &["postcode", "phone"][..], Some(one_pass)),
+        (0.8, &["sex", "postcode", "phone"][..], Some(one_pass)),
     ] {
         let r = run_with(2000, noise, 9, drop, blocks, dir.path());
         let actual = r.actual_mismatch_rate();
