@@ -121,8 +121,8 @@ impl Run {
 fn forecast_tracks_the_actual_mismatch_rate() {
     // The tolerance: within max(0.01, 0.3 x actual), over noise levels and field sets.
     // Given name, surname and birth date alone at noise 0.8 were a known miss with the
-    // pairwise prior (forecast 1.2% against 2.2% measured); with the one-to-one link prior
-    // the forecast is 0.37% against 0.53%.
+    // pairwise prior and synth's old twin rate (forecast 1.2% against 2.2% measured); now the
+    // forecast is 0.37% against 0.53%.
     let dir = tempfile::tempdir().unwrap();
     let one_pass = "[[block]]\nkeys = [\"surname:soundex\", \"birth:year\"]\n\n";
     for (noise, drop, blocks) in [
