@@ -410,15 +410,12 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
                 Some(s) => (&s.of_pair, s.fits.iter().collect()),
                 None => (&pooled_group, vec![&fit]),
             };
-            if link_log_odds.len() == 1 {
-                pooled_link_log_odds = link_log_odds.first().copied();
-            }
             if link_log_odds.len() != fits.len() {
+                // The pooled rounds' prior, kept when the strata take over.
+                pooled_link_log_odds = link_log_odds.first().copied();
                 // Each stratum starts from its share's log odds, moved as far as the pooled
                 // prior has moved from the pooled share's.
-                let shift = link_log_odds
-                    .first()
-                    .map_or(0.0, |&l| l - fit.prior_log_odds());
+                let shift = pooled_link_log_odds.map_or(0.0, |l| l - fit.prior_log_odds());
                 link_log_odds = fits.iter().map(|f| f.prior_log_odds() + shift).collect();
             }
             confidence::link_prior_step(

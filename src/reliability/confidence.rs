@@ -333,7 +333,7 @@ fn belief_propagation_sweeps(
                     .par_iter()
                     .map_init(Buffers::default, |b, edges| {
                         b.sweep(edges, &g.theta, incoming, target, opts.damping);
-                        b.new.clone()
+                        std::mem::take(&mut b.new)
                     })
                     .collect();
                 for (edges, values) in edges_of.iter().zip(&new) {
