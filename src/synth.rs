@@ -12,6 +12,7 @@
 //! the same arguments give the same bytes.
 
 use crate::rng::Rng;
+use std::collections::HashMap;
 
 const GIVEN_HEADS: &[&str] = &[
     "Al", "Bren", "Cor", "Dav", "El", "Fen", "Gal", "Har", "Is", "Jor", "Kel", "Lis", "Mar", "Nor",
@@ -95,6 +96,52 @@ struct Person {
     town: usize,
     sector: u32,
     phone: Option<String>,
+    /// The household the person belongs to (an index in order of creation).
+    household: u32,
+}
+
+/// The hard cases of real extracts, each off (0 or empty) by default; with every knob off the
+/// tables are byte for byte those of [`generate`]. Each knob draws from a random stream of its
+/// own, apart from the re-recording of the rows it changes.
+#[derive(Debug, Clone, Default)]
+pub struct Scenario {
+    /// Share of the right table's people who moved since the left table was made (a new
+    /// town, street, house, postcode, and no landline). None keeps the default, 0.3 x noise.
+    pub movers: Option<f64>,
+    /// Share of the movers whose whole household moved with them, to one new address.
+    pub household_moves: f64,
+    /// Share of the right table's people who are not in the left table that are instead
+    /// relatives or neighbours of a left person who is also not in the right table
+    /// (household members, same-name juniors, twins, neighbours): the false pairs that look
+    /// most like true ones.
+    pub relatives: f64,
+    /// Share of each table's records that have a second, re-keyed record of the same person
+    /// in the same table (duplicates the one-to-one model does not expect).
+    pub duplicates: f64,
+    /// Columns blanked at a rate, by header name (`dob`, `birth_date`, `postcode`, ...).
+    pub blank: Vec<(String, f64)>,
+}
+
+impl Scenario {
+    /// Parses `column=rate` (a `--blank` argument).
+    pub fn parse_blank(text: &str) -> Option<(String, f64)> {
+        let (col, rate) = text.split_once('=')?;
+        let rate: f64 = rate.trim().parse().ok()?;
+        (!col.trim().is_empty() && (0.0..=1.0).contains(&rate))
+            .then(|| (col.trim().to_string(), rate))
+    }
+
+    /// The columns `--blank` may name.
+    pub fn blank_columns() -> Vec<&'static str> {
+        let mut c: Vec<&str> = LEFT_HEADER[1..]
+            .iter()
+            .chain(&RIGHT_HEADER[1..])
+            .copied()
+            .collect();
+        c.sort_unstable();
+        c.dedup();
+        c
+    }
 }
 
 /// The generated tables as CSV text, and the truth.
@@ -160,7 +207,7 @@ fn houses(population: usize) -> usize {
 pub const TWIN_CHANCE: f64 = 0.015;
 
 /// Builds households until `n` people exist.
-fn population(rng: &mut Rng, n: usize, twins: f64) -> Vec<Person> {
+fn population(rng: &mut Rng, n: usize, twins: f64) -> (Vec<Person>, Vec<String>, Vec<f64>) {
     let mut surnames: Vec<String> = Vec::new();
     for h in SURNAME_HEADS {
         for m in SURNAME_MIDDLES {
@@ -181,7 +228,9 @@ fn population(rng: &mut Rng, n: usize, twins: f64) -> Vec<Person> {
     rng.shuffle(&mut given_stock);
     let given_zipf = zipf_cumulative(given_stock.len(), GIVEN_ZIPF);
     let mut people = Vec::with_capacity(n + 6);
+    let mut household = 0u32;
     while people.len() < n {
+        household += 1;
         let surname = surnames[rng.pick_cumulative(&zipf)].clone();
         let town = rng.below(TOWNS.len());
         let street = rng.below(STREET_NAMES.len() * STREET_KINDS.len());
@@ -228,11 +277,12 @@ fn population(rng: &mut Rng, n: usize, twins: f64) -> Vec<Person> {
                 } else {
                     landline.clone()
                 },
+                household,
             });
         }
     }
     people.truncate(n);
-    people
+    (people, surnames, zipf)
 }
 
 /// A keying slip: substitution, deletion, insertion or transposition of one letter.
@@ -264,8 +314,29 @@ fn restyle(rng: &mut Rng, s: &str) -> String {
     }
 }
 
-/// The person as written down again, with slips in proportion to `noise`.
-fn rerecord(rng: &mut Rng, p: &Person, noise: f64, houses: usize) -> Person {
+/// A new address: town, street, house and postcode sector.
+fn new_address(rng: &mut Rng, houses: usize) -> (usize, usize, u32, u32) {
+    let town = rng.below(TOWNS.len());
+    let street = rng.below(STREET_NAMES.len() * STREET_KINDS.len());
+    let house = 1 + rng.below(houses) as u32;
+    (
+        town,
+        street,
+        house,
+        (street as u32 * 7 + town as u32 * 3) % 100,
+    )
+}
+
+/// How a record is moved: the chance it moved, and where its household moved to, if the
+/// household moved together.
+struct Moves<'a> {
+    chance: f64,
+    household: &'a HashMap<u32, (usize, usize, u32, u32)>,
+}
+
+/// The person as written down again, with slips in proportion to `noise` and a move with
+/// `moves.chance`.
+fn rerecord(rng: &mut Rng, p: &Person, noise: f64, houses: usize, moves: &Moves) -> Person {
     let mut q = p.clone();
     if rng.chance(0.35 * noise) {
         q.given = typo(rng, &q.given);
@@ -286,11 +357,10 @@ fn rerecord(rng: &mut Rng, p: &Person, noise: f64, houses: usize) -> Person {
         let (y, m, d) = q.birth;
         q.birth = (y, m, d.min(crate::text::days_in_month(y, m)));
     }
-    if rng.chance(0.3 * noise) {
-        q.town = rng.below(TOWNS.len());
-        q.street = rng.below(STREET_NAMES.len() * STREET_KINDS.len());
-        q.house = 1 + rng.below(houses) as u32;
-        q.sector = (q.street as u32 * 7 + q.town as u32 * 3) % 100;
+    if rng.chance(moves.chance) {
+        let drawn = new_address(rng, houses);
+        (q.town, q.street, q.house, q.sector) =
+            moves.household.get(&p.household).copied().unwrap_or(drawn);
         q.phone = None;
     }
     if rng.chance(0.3 * noise) {
@@ -439,20 +509,93 @@ min_confidence = 0.5
 
 /// Generates the two tables and their truth.
 pub fn generate(opts: &SynthOptions) -> Synthetic {
+    generate_scenario(opts, &Scenario::default())
+}
+
+/// A relative or neighbour of `p`, living at or next to p's address (see
+/// [`Scenario::relatives`]): a household member, a same-name junior, a twin or a neighbour.
+fn relative_of(rng: &mut Rng, p: &Person, other: &Person) -> Person {
+    let mut q = p.clone();
+    q.household = p.household;
+    let (y, _, _) = p.birth;
+    let other_given = |q: &mut Person| {
+        q.given = if other.given != p.given {
+            other.given.clone()
+        } else {
+            format!("{}a", other.given)
+        };
+    };
+    match rng.below(20) {
+        // A household member: a spouse or a sibling.
+        0..=6 => {
+            other_given(&mut q);
+            q.birth = random_birth(rng, y - 3, y + 3);
+            q.sex = if rng.chance(0.5) { 'F' } else { 'M' };
+        }
+        // A same-name junior or senior.
+        7..=11 => {
+            let gap = 20 + rng.below(16) as i32;
+            let year = if y + gap <= 2015 { y + gap } else { y - gap };
+            q.birth = random_birth(rng, year, year);
+        }
+        // A twin.
+        12..=14 => {
+            other_given(&mut q);
+            q.sex = if rng.chance(0.5) { 'F' } else { 'M' };
+        }
+        // A neighbour: another family a few doors away.
+        _ => {
+            q.given = other.given.clone();
+            q.surname = other.surname.clone();
+            q.birth = other.birth;
+            q.sex = other.sex;
+            q.house = (p.house + 1 + rng.below(4) as u32).max(1);
+            q.household = u32::MAX;
+            q.phone = other.phone.clone().filter(|_| rng.chance(0.5));
+        }
+    }
+    q
+}
+
+/// The streams of the scenario knobs (apart from the base generator's).
+const STREAM_MOVES: u64 = 101;
+const STREAM_RELATIVES: u64 = 102;
+const STREAM_DUPLICATES: u64 = 103;
+const STREAM_BLANK: u64 = 104;
+
+/// Generates the two tables and their truth for a scenario (see [`Scenario`]). The truth
+/// holds every pair of a left and a right record of one person, so with duplicates a person
+/// can have more than one true pair.
+pub fn generate_scenario(opts: &SynthOptions, sc: &Scenario) -> Synthetic {
     let mut rng = Rng::new(opts.seed);
     let n = opts.rows;
     let overlap = opts.overlap.clamp(0.0, 1.0);
     let shared = (n as f64 * overlap).round() as usize;
-    let people = population(&mut rng, 2 * n - shared, opts.twins.clamp(0.0, 1.0));
+    let (mut people, surnames, surname_zipf) =
+        population(&mut rng, 2 * n - shared, opts.twins.clamp(0.0, 1.0));
+    let house_count = houses(people.len());
     let mut order: Vec<usize> = (0..people.len()).collect();
     rng.shuffle(&mut order);
     let left_people: Vec<usize> = order[..n].to_vec();
+    let mut extra: Vec<usize> = order[n..].to_vec();
+    if sc.relatives > 0.0 && !left_people.is_empty() {
+        let mut r = Rng::stream(opts.seed, STREAM_RELATIVES);
+        let k = (extra.len() as f64 * sc.relatives.clamp(0.0, 1.0)).round() as usize;
+        for slot in extra.iter_mut().take(k) {
+            let of = &people[left_people[r.below(left_people.len())]];
+            let mut other = people[r.below(people.len())].clone();
+            other.surname = surnames[r.pick_cumulative(&surname_zipf)].clone();
+            let rel = relative_of(&mut r, of, &other);
+            people.push(rel);
+            *slot = people.len() - 1;
+        }
+    }
     let mut right_people: Vec<(usize, Option<usize>)> = left_people[..shared]
         .iter()
         .enumerate()
         .map(|(li, &p)| (p, Some(li)))
         .collect();
-    right_people.extend(order[n..].iter().map(|&p| (p, None)));
+    right_people.extend(extra.iter().map(|&p| (p, None)));
     rng.shuffle(&mut right_people);
     // Ids are drawn at random so that row order says nothing about the truth.
     let mut left_ids: Vec<u32> = (0..n as u32).collect();
@@ -461,37 +604,111 @@ pub fn generate(opts: &SynthOptions) -> Synthetic {
     rng.shuffle(&mut right_ids);
     let lid = |i: usize| format!("L{:07}", left_ids[i]);
     let rid = |j: usize| format!("R{:07}", right_ids[j]);
-    let left_rows: Vec<Row> = left_people
+    // Households that move together, each to one new address.
+    let mut household_address: HashMap<u32, (usize, usize, u32, u32)> = HashMap::new();
+    if sc.household_moves > 0.0 {
+        let mut r = Rng::stream(opts.seed, STREAM_MOVES);
+        let mut households: Vec<u32> = people.iter().map(|p| p.household).collect();
+        households.sort_unstable();
+        households.dedup();
+        for h in households {
+            if r.chance(sc.household_moves) {
+                household_address.insert(h, new_address(&mut r, house_count));
+            }
+        }
+    }
+    let stay = HashMap::new();
+    let left_moves = Moves {
+        chance: 0.3 * 0.3 * opts.noise,
+        household: &stay,
+    };
+    let right_moves = Moves {
+        chance: sc.movers.unwrap_or(0.3 * opts.noise),
+        household: &household_address,
+    };
+    // (record, person) per row; ids as written.
+    let mut left_rows: Vec<(Row, usize)> = left_people
         .iter()
         .enumerate()
         .map(|(i, &p)| {
-            let rec = rerecord(&mut rng, &people[p], 0.3 * opts.noise, houses(people.len()));
-            write_row(&rec, lid(i), &mut rng, opts.noise)
+            let rec = rerecord(
+                &mut rng,
+                &people[p],
+                0.3 * opts.noise,
+                house_count,
+                &left_moves,
+            );
+            (write_row(&rec, lid(i), &mut rng, opts.noise), p)
         })
         .collect();
-    let mut truth = Vec::new();
-    let right_rows: Vec<Row> = right_people
+    let mut right_rows: Vec<(Row, usize)> = right_people
         .iter()
         .enumerate()
-        .map(|(j, &(p, li))| {
-            if let Some(li) = li {
-                truth.push((lid(li), rid(j)));
-            }
-            let rec = rerecord(&mut rng, &people[p], opts.noise, houses(people.len()));
-            write_row(&rec, rid(j), &mut rng, opts.noise)
+        .map(|(j, &(p, _))| {
+            let rec = rerecord(&mut rng, &people[p], opts.noise, house_count, &right_moves);
+            (write_row(&rec, rid(j), &mut rng, opts.noise), p)
         })
         .collect();
-    truth.sort();
+    if sc.duplicates > 0.0 {
+        let mut r = Rng::stream(opts.seed, STREAM_DUPLICATES);
+        for (rows, prefix, moves) in [
+            (&mut left_rows, 'L', &left_moves),
+            (&mut right_rows, 'R', &right_moves),
+        ] {
+            let k = (rows.len() as f64 * sc.duplicates.clamp(0.0, 1.0)).round() as usize;
+            let mut pick: Vec<usize> = (0..rows.len()).collect();
+            r.shuffle(&mut pick);
+            let base = rows.len();
+            for (j, &i) in pick.iter().take(k).enumerate() {
+                let p = rows[i].1;
+                let rec = rerecord(&mut r, &people[p], opts.noise.max(0.3), house_count, moves);
+                let id = format!("{prefix}{:07}", base + j);
+                rows.push((write_row(&rec, id, &mut r, opts.noise), p));
+            }
+            r.shuffle(rows);
+        }
+    }
+    if !sc.blank.is_empty() {
+        let mut r = Rng::stream(opts.seed, STREAM_BLANK);
+        for (rows, header) in [
+            (&mut left_rows, LEFT_HEADER),
+            (&mut right_rows, RIGHT_HEADER),
+        ] {
+            for (col, rate) in &sc.blank {
+                if let Some(c) = header[1..].iter().position(|h| h == col) {
+                    for (row, _) in rows.iter_mut() {
+                        if r.chance(*rate) {
+                            row.cells[c].clear();
+                        }
+                    }
+                }
+            }
+        }
+    }
+    let mut right_of: HashMap<usize, Vec<&str>> = HashMap::new();
+    for (row, p) in &right_rows {
+        right_of.entry(*p).or_default().push(&row.id);
+    }
+    let mut truth: Vec<(&str, &str)> = Vec::new();
+    for (row, p) in &left_rows {
+        for &r in right_of.get(p).map_or(&[][..], |v| &v[..]) {
+            truth.push((&row.id, r));
+        }
+    }
+    truth.sort_unstable();
     let mut t = String::from("left_id,right_id\n");
     for (a, b) in &truth {
         t.push_str(&format!("{a},{b}\n"));
     }
+    let true_pairs = truth.len();
+    let left: Vec<Row> = left_rows.into_iter().map(|r| r.0).collect();
+    let right: Vec<Row> = right_rows.into_iter().map(|r| r.0).collect();
     Synthetic {
-        left_csv: csv_text(LEFT_HEADER, &left_rows),
-        right_csv: csv_text(RIGHT_HEADER, &right_rows),
+        left_csv: csv_text(LEFT_HEADER, &left),
+        right_csv: csv_text(RIGHT_HEADER, &right),
         truth_csv: t,
         config_toml: CONFIG.to_string(),
-        true_pairs: truth.len(),
+        true_pairs,
     }
 }
 
@@ -518,5 +735,106 @@ mod tests {
         assert!(
             crate::config::Config::from_text(&a.config_toml, std::path::Path::new(".")).is_ok()
         );
+    }
+
+    #[test]
+    fn scenario_knobs_do_what_they_say() {
+        let o = SynthOptions {
+            rows: 2000,
+            overlap: 0.5,
+            noise: 0.5,
+            seed: 9,
+            twins: TWIN_CHANCE,
+        };
+        // Every knob off: the bytes of `generate`.
+        let plain = generate(&o);
+        let off = generate_scenario(&o, &Scenario::default());
+        assert_eq!(plain.right_csv, off.right_csv);
+        assert_eq!(plain.truth_csv, off.truth_csv);
+        // Duplicates: 5% more rows on each side, and more true pairs than people shared.
+        let dup = generate_scenario(
+            &o,
+            &Scenario {
+                duplicates: 0.05,
+                ..Scenario::default()
+            },
+        );
+        assert_eq!(dup.left_csv.lines().count(), 2101);
+        assert_eq!(dup.right_csv.lines().count(), 2101);
+        assert!(
+            dup.true_pairs > 1000 && dup.true_pairs < 1120,
+            "{}",
+            dup.true_pairs
+        );
+        // A blanked column is empty at about its rate (0.5 of 2000 rows, binomial sd 22).
+        let blank = generate_scenario(
+            &o,
+            &Scenario {
+                blank: vec![("dob".into(), 0.5)],
+                ..Scenario::default()
+            },
+        );
+        let empty = blank
+            .right_csv
+            .lines()
+            .skip(1)
+            .filter(|l| l.split(',').nth(3) == Some(""))
+            .count();
+        assert!((900..1100).contains(&empty), "{empty}");
+        // Movers: with every right person moved, few true pairs keep the left postcode
+        // (a new address is the old one by chance only).
+        let moved = generate_scenario(
+            &o,
+            &Scenario {
+                movers: Some(1.0),
+                ..Scenario::default()
+            },
+        );
+        let postcodes = |csv: &str| -> std::collections::HashMap<String, String> {
+            let mut r = csv::Reader::from_reader(csv.as_bytes());
+            r.records()
+                .filter_map(|x| x.ok())
+                .map(|x| (x[0].to_string(), x[7].to_string()))
+                .collect()
+        };
+        let (lp, rp) = (postcodes(&moved.left_csv), postcodes(&moved.right_csv));
+        let same = moved
+            .truth_csv
+            .lines()
+            .skip(1)
+            .filter_map(|l| l.split_once(','))
+            .filter(|(a, b)| !lp[*a].is_empty() && lp[*a] == rp[*b])
+            .count();
+        assert!(same < 20, "{same}");
+        // Relatives: the extra right people become look-alikes of left people; the same-name
+        // juniors (a quarter of them) share a left record's given name, surname and postcode,
+        // which members of one household never do.
+        let rel = generate_scenario(
+            &o,
+            &Scenario {
+                relatives: 1.0,
+                ..Scenario::default()
+            },
+        );
+        assert_eq!(rel.true_pairs, plain.true_pairs);
+        let shared_keys = |s: &Synthetic| {
+            let key = |csv: &str| -> std::collections::HashSet<(String, String, String)> {
+                let mut r = csv::Reader::from_reader(csv.as_bytes());
+                r.records()
+                    .filter_map(|x| x.ok())
+                    .map(|x| {
+                        (
+                            x[1].trim().to_lowercase(),
+                            x[2].trim().to_lowercase(),
+                            x[7].to_string(),
+                        )
+                    })
+                    .collect()
+            };
+            let (l, r) = (key(&s.left_csv), key(&s.right_csv));
+            r.intersection(&l).count()
+        };
+        let (a, b) = (shared_keys(&rel), shared_keys(&plain));
+        assert!(a > b + 30, "{a} {b}");
     }
 }

@@ -285,6 +285,18 @@ fn per_pass_fits(prep: &Prepared) -> Vec<PassSetFit> {
         .collect()
 }
 
+/// The estimated precision of the links (their mean confidence) and their estimated recall
+/// among the candidate pairs (their confidences over the expected number of true pairs among
+/// the candidates, under the same posterior: with value-frequency weights, the fit's p |C| is
+/// not on the confidences' scale); None where there is nothing to divide by.
+pub fn estimates(l: &Linkage) -> (Option<f64>, Option<f64>) {
+    let conf: f64 = l.links.iter().map(|&i| l.confidence.p[i]).sum();
+    let precision = (!l.links.is_empty()).then(|| conf / l.links.len() as f64);
+    let expected_true: f64 = l.confidence.p.iter().sum();
+    let recall = (expected_true > 0.0).then(|| (conf / expected_true).min(1.0));
+    (precision, recall)
+}
+
 fn summary(
     prep: &Prepared,
     a: &Assessment,
@@ -332,20 +344,7 @@ fn summary(
         .collect();
     let (links, below, cutoff, precision, recall, comps) = match link {
         Some(l) => {
-            let conf: f64 = l.links.iter().map(|&i| l.confidence.p[i]).sum();
-            let precision = if l.links.is_empty() {
-                None
-            } else {
-                Some(conf / l.links.len() as f64)
-            };
-            // The expected number of true pairs among the candidates under the same posterior
-            // (with value-frequency weights, the fit's p |C| is not on the confidences' scale).
-            let expected_true: f64 = l.confidence.p.iter().sum();
-            let recall = if expected_true > 0.0 {
-                Some((conf / expected_true).min(1.0))
-            } else {
-                None
-            };
+            let (precision, recall) = estimates(l);
             (
                 Some(l.links.len()),
                 Some(l.matching.chosen.len() - l.links.len()),
