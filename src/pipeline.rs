@@ -400,10 +400,27 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
             let marg =
                 confidence::marginals(records.n_left(), &cands.left, &cands.right, &theta, &rough);
             gamma = pattern_shares(&comparison, &counts, &marg.p);
-            fit = model::fit_from_shares(&counts, &gamma, &fit, &known);
             let stratified = round >= ONE_TO_ONE_ROUNDS;
+            // m by leave-one-field-out from the link probabilities of this round (see
+            // model::leave_one_out_m), u, p and the missing shares by the M-step.
+            let pooled_m = model::leave_one_out_m(&comparison, &[&fit], |_| 0, &marg.p);
+            let strata_m = strata
+                .as_ref()
+                .filter(|s| stratified && !s.fits.is_empty())
+                .map(|s| {
+                    let fits: Vec<&Fit> = s.fits.iter().collect();
+                    model::leave_one_out_m(&comparison, &fits, |i| s.stratum_of(i), &marg.p)
+                });
+            fit = model::fit_from_shares(&counts, &gamma, &fit, &known);
+            fit.m = pooled_m.into_iter().next().unwrap_or_default();
+            known.apply_m(&mut fit.m);
             if let (Some(s), true) = (strata.as_mut(), stratified) {
                 s.refit(&comparison, &marg.p, &fit);
+                if let Some(ms) = strata_m {
+                    for (f, m) in s.fits.iter_mut().zip(ms) {
+                        f.m = m;
+                    }
+                }
             }
             let st = strata.as_ref().filter(|_| stratified);
             let (group, fits): (&[u32], Vec<&Fit>) = match st {

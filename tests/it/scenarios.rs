@@ -136,6 +136,29 @@ keys = ["birth"]
 keys = ["postcode"]
 "#;
 
+/// Names and birth date alone, one pass on the surname's sound and the birth year.
+pub const NAMES_BIRTH: &str = r#"
+[[field]]
+name = "given"
+left = "given_name"
+right = "first_name"
+method = "jaro-winkler"
+bands = [0.94, 0.85]
+[[field]]
+name = "surname"
+left = "surname"
+right = "last_name"
+method = "jaro-winkler"
+bands = [0.94, 0.85]
+[[field]]
+name = "birth"
+left = "birth_date"
+right = "dob"
+method = "date"
+[[block]]
+keys = ["surname:soundex", "birth:year"]
+"#;
+
 /// A scenario: synth settings and the fields and passes to link with.
 #[derive(Debug, Clone)]
 pub struct Case {
@@ -196,6 +219,7 @@ pub fn matrix() -> Vec<Case> {
             ..Case::new("full movers .15", FULL, 0.5)
         },
         Case::new("one name n1.0", ONE_NAME, 1.0),
+        Case::new("names+birth n0.8", NAMES_BIRTH, 0.8),
         Case {
             overlap: 0.2,
             scenario: Scenario {
