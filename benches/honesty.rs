@@ -42,6 +42,12 @@ fn main() {
             let misses = scenarios::misses(&o);
             runs += 1;
             bad += usize::from(!misses.is_empty());
+            let check = format!(
+                "{} {:.3}/{}",
+                if o.misfit { "misfit" } else { "ok" },
+                o.misfit_matters,
+                o.signatures
+            );
             let all_est = o
                 .est_recall_all
                 .map_or("-".to_string(), |(r, _)| format!("{r:.3}"));
@@ -60,7 +66,7 @@ fn main() {
                 100.0 * o.forecast,
                 o.verdict.as_str(),
                 o.actual_band().as_str(),
-                if o.misfit { "misfit" } else { "ok" },
+                check,
                 if misses.is_empty() { "-".to_string() } else { misses.join("; ") },
             );
         }

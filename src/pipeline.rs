@@ -10,6 +10,7 @@ use crate::config::Config;
 use crate::error::{Error, Result};
 use crate::io::{self, Encoding, ReadSpec, Table};
 use crate::matching::{self, Matching};
+use crate::model::check::ModelCheck;
 use crate::model::{self, EmOptions, Fit, Strata, ValueFrequency};
 use crate::records::{self, Records, MISSING};
 use crate::reliability::confidence::{self, BpOptions, Marginals};
@@ -74,6 +75,8 @@ pub struct Prepared {
     pub theta: Vec<f64>,
     /// Per-field separation.
     pub separations: Vec<FieldSeparation>,
+    /// The model check of the final laws (None without candidates).
+    pub check: Option<ModelCheck>,
     /// Warnings for the user, in plain words (counts only, never record values).
     pub warnings: Vec<String>,
     /// Seconds per stage.
@@ -92,6 +95,19 @@ pub struct Linkage {
     pub links: Vec<usize>,
     /// The confidence cut-off in force.
     pub cutoff: f64,
+    /// The estimated precision of the links and its interval (see [`estimate_intervals`]).
+    pub precision: Option<Estimate>,
+    /// The estimated recall among the candidate pairs and its interval.
+    pub recall: Option<Estimate>,
+}
+
+/// An estimate with a 95% interval that also holds the model check's misfit.
+#[derive(Debug, Clone, Copy, serde::Serialize)]
+pub struct Estimate {
+    /// The estimate.
+    pub value: f64,
+    /// Lower and upper ends.
+    pub interval: [f64; 2],
 }
 
 struct Clock {
@@ -522,6 +538,27 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
             }
         }
     }
+    let check = (!cands.is_empty()).then(|| {
+        let fits: Vec<&Fit> = match &strata {
+            Some(s) => s.fits.iter().collect(),
+            None => vec![&fit],
+        };
+        let prior: Vec<f64> = if link_log_odds.len() == fits.len() {
+            link_log_odds.clone()
+        } else {
+            fits.iter().map(|f| f.prior_log_odds()).collect()
+        };
+        let mut free = vec![true; records.fields.len()];
+        for p in &passes {
+            p.parts.iter().for_each(|k| free[k.field] = false);
+        }
+        model::check::check(
+            &comparison,
+            &model::check::CheckStrata { fits, prior, free },
+            |i| strata.as_ref().map_or(0, |s| s.stratum_of(i)),
+            CHECK_MIN_TRUE,
+        )
+    });
     clock.lap("fitting", &mut timings);
     Ok(Prepared {
         config,
@@ -542,10 +579,14 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
         weight,
         theta,
         separations,
+        check,
         warnings,
         timings,
     })
 }
+
+/// Expected true pairs a stratum needs before the model check reads its laws.
+const CHECK_MIN_TRUE: f64 = 100.0;
 
 /// The looser BP of the one-to-one refinement and the link prior's fit.
 const REFINEMENT_BP: BpOptions = BpOptions {
@@ -770,9 +811,147 @@ fn match_and_assess(prep: &mut Prepared, progress: &dyn Progress) -> (Matching, 
         },
         &verdict_rule(&prep.config),
     );
+    let mut assessment = assessment;
+    if let Some(check) = prep.check.as_ref().filter(|c| c.flagged()) {
+        apply_check(prep, check, &matching, &mut assessment);
+    }
     clock.lap("assessing", &mut prep.timings);
     (matching, assessment)
 }
+
+/// The stratum and pattern code of pair `i`, as the model check keys them.
+fn check_key(prep: &Prepared, i: usize) -> (usize, u64) {
+    (
+        prep.strata.as_ref().map_or(0, |s| s.stratum_of(i)),
+        prep.comparison.codes[i],
+    )
+}
+
+/// A flagged model check makes a feasible verdict borderline, says why in plain words, and
+/// widens the forecast interval by the share of the chosen pairs that the model cannot
+/// account for (to [0, 1] where a stratum's fit is not identified).
+fn apply_check(
+    prep: &Prepared,
+    check: &ModelCheck,
+    matching: &Matching,
+    a: &mut reliability::Assessment,
+) {
+    use crate::model::check::Signature;
+    use crate::reliability::Verdict;
+    let names: Vec<&str> = prep.config.field.iter().map(|f| f.name.as_str()).collect();
+    let found_by = |s: usize| -> String {
+        let mask = prep.strata.as_ref().map_or(u16::MAX, |st| st.masks[s]);
+        let passes: Vec<&str> = prep
+            .pass_stats
+            .iter()
+            .enumerate()
+            .filter(|(j, _)| mask & (1 << j) != 0)
+            .map(|(_, p)| p.name.as_str())
+            .collect();
+        passes.join(" + ")
+    };
+    for sig in &check.signatures {
+        a.reasons.push(match sig {
+            Signature::Unidentified { stratum, varying } => format!(
+                "the model check: among the pairs found by {} only {varying} field(s) vary (the others are fixed by the blocking keys); two classes need at least three, so the fit there is not determined by the data",
+                found_by(*stratum)
+            ),
+            Signature::Inverted { stratum, field, m, u } => format!(
+                "the model check: among the pairs found by {}, agreement on `{}` is likelier in the class taken for false pairs ({u:.3}) than for true pairs ({m:.3}): the two classes are mixed up",
+                found_by(*stratum),
+                names[*field]
+            ),
+        });
+    }
+    if check.misfit_matters >= crate::model::check::MISFIT_FLAG {
+        let worst = check.worst.first().map_or(String::new(), |w| {
+            let fields: Vec<&str> = w
+                .levels
+                .iter()
+                .enumerate()
+                .filter(|(_, &l)| l == 0)
+                .map(|(k, _)| names[k])
+                .collect();
+            format!(
+                "; the largest gap: {:.0} pairs found by {} agree on {} where the model expects {:.0}",
+                w.observed,
+                found_by(w.stratum),
+                if fields.is_empty() { "nothing".to_string() } else { fields.join(", ") },
+                w.expected
+            )
+        });
+        a.reasons.push(format!(
+            "the model check: {:.0}% of the pairs that can be linked are not where the fitted model expects them (fields that move together, relatives or neighbours in the other table){worst}; the estimates carry wider intervals",
+            100.0 * check.misfit_matters
+        ));
+    }
+    let unidentified = check.unidentified();
+    if a.verdict == Verdict::Feasible {
+        a.verdict = Verdict::Borderline;
+    }
+    let widen = if unidentified {
+        1.0
+    } else {
+        check.excess_share(matching.chosen.iter().map(|&i| check_key(prep, i)))
+    };
+    if let Some(f) = a.forecast.as_mut() {
+        f.interval = [
+            (f.interval[0] - widen).max(0.0),
+            (f.interval[1] + widen).min(1.0),
+        ];
+    }
+}
+
+/// The estimated precision of the links (their mean confidence) and recall among the
+/// candidate pairs (their confidences over all candidates' confidences), with 95% intervals:
+/// the sampling part from the confidences themselves (the sum of c (1 - c) is the variance of
+/// the number of true pairs among independent pairs; normal approximation, common practice),
+/// widened by the share of the pairs concerned that the model check finds in excess of what
+/// the model expects (pairs of a class the model does not have, which may all be false); an
+/// unidentified fit gives [0, 1].
+fn estimate_intervals(
+    prep: &Prepared,
+    links: &[usize],
+    confidence: &[f64],
+) -> (Option<Estimate>, Option<Estimate>) {
+    let n = links.len() as f64;
+    let sum: f64 = links.iter().map(|&i| confidence[i]).sum();
+    let var: f64 = links
+        .iter()
+        .map(|&i| confidence[i] * (1.0 - confidence[i]))
+        .sum();
+    let expected_true: f64 = confidence.iter().sum();
+    let var_all: f64 = confidence.iter().map(|c| c * (1.0 - c)).sum();
+    let check = prep.check.as_ref().filter(|c| c.flagged());
+    let unidentified = check.is_some_and(|c| c.unidentified());
+    let excess = |pairs: &mut dyn Iterator<Item = usize>| {
+        check.map_or(0.0, |c| c.excess_share(pairs.map(|i| check_key(prep, i))))
+    };
+    let interval = |value: f64, se: f64, widen: f64| Estimate {
+        value,
+        interval: if unidentified {
+            [0.0, 1.0]
+        } else {
+            [
+                (value - 1.96 * se - widen).max(0.0),
+                (value + 1.96 * se + widen).min(1.0),
+            ]
+        },
+    };
+    let precision = (n > 0.0).then(|| {
+        let w = excess(&mut links.iter().copied());
+        interval(sum / n, var.sqrt() / n, w)
+    });
+    let recall = (expected_true > 0.0).then(|| {
+        let value = (sum / expected_true).min(1.0);
+        let w = excess(&mut (0..confidence.len()).filter(|&i| confidence[i] >= MATTERS_FOR_RECALL));
+        interval(value, var_all.sqrt() / expected_true, w)
+    });
+    (precision, recall)
+}
+
+/// Confidence from which a candidate pair counts towards the recall's widening.
+const MATTERS_FOR_RECALL: f64 = 0.05;
 
 /// The feasibility assessment without writing links.
 pub fn assess_only(prep: &mut Prepared, progress: &dyn Progress) -> Assessment {
@@ -836,6 +1015,7 @@ pub fn link(prep: &mut Prepared, progress: &dyn Progress) -> Linkage {
         // The classes are not identified: no link can be reported with any confidence.
         Vec::new()
     };
+    let (precision, recall) = estimate_intervals(prep, &links, &confidence.p);
     clock.lap("confidence", &mut prep.timings);
     Linkage {
         matching,
@@ -843,6 +1023,8 @@ pub fn link(prep: &mut Prepared, progress: &dyn Progress) -> Linkage {
         assessment,
         links,
         cutoff,
+        precision,
+        recall,
     }
 }
 

@@ -436,14 +436,14 @@ pub fn page(prep: &Prepared, l: &Linkage, review: &[usize], tune: Option<&[TuneR
     );
     let unlinked_l = prep.records.n_left() - l.links.len();
     let unlinked_r = prep.records.n_right() - l.links.len();
-    let est_precision = if l.links.is_empty() {
-        "n/a".to_string()
-    } else {
+    let est_precision = l.precision.map_or("n/a".to_string(), |e| {
         format!(
-            "{:.1}%",
-            100.0 * l.links.iter().map(|&i| l.confidence.p[i]).sum::<f64>() / l.links.len() as f64
+            "{:.1}% ({:.1}–{:.1}%)",
+            100.0 * e.value,
+            100.0 * e.interval[0],
+            100.0 * e.interval[1]
         )
-    };
+    });
     let _ = write!(
         h,
         "<section><h2>The run in numbers</h2><div class=\"tiles\">"
@@ -501,6 +501,50 @@ pub fn page(prep: &Prepared, l: &Linkage, review: &[usize], tune: Option<&[TuneR
     let names: Vec<String> = a.fields.iter().map(|f| f.name.clone()).collect();
     let nats: Vec<f64> = a.fields.iter().map(|f| f.nats).collect();
     h.push_str(&separation_chart(&names, &nats, a.nats_needed));
+    if let Some(c) = &prep.check {
+        let _ = write!(
+            h,
+            "<h3>Does the model fit?</h3><p>Every number on this page rests on a statistical model of the candidate pairs: two kinds of pair, the same person or not, with fields that agree independently within each kind. The check compares how many candidate pairs show each pattern of agreement with how many the fitted model expects. Among the {:.0} pairs that could be linked, {:.1}% are not where the model expects them{}.</p>",
+            c.pairs_matter,
+            100.0 * c.misfit_matters,
+            if c.flagged() {
+                ": too many to trust the estimates as they stand, so the verdict is not feasible and the intervals are wide; look for relatives or neighbours in the other table, duplicates inside a table, or fields that move together"
+            } else {
+                ": few enough for the estimates to stand"
+            }
+        );
+        if !c.worst.is_empty() {
+            let _ = write!(h, "<table><tr><th>pattern (levels per field)</th><th>pairs seen</th><th>pairs expected</th></tr>");
+            for w in &c.worst {
+                let levels: Vec<String> = w
+                    .levels
+                    .iter()
+                    .enumerate()
+                    .map(|(k, &l)| {
+                        let name = &prep.config.field[k].name;
+                        if l == crate::compare::MISSING_LEVEL {
+                            format!("{name}: missing")
+                        } else {
+                            let level = prep.comparison.comparators[k]
+                                .level_names()
+                                .get(l as usize)
+                                .cloned()
+                                .unwrap_or_default();
+                            format!("{name}: {level}")
+                        }
+                    })
+                    .collect();
+                let _ = write!(
+                    h,
+                    "<tr><td>{}</td><td class=\"num\">{:.0}</td><td class=\"num\">{:.1}</td></tr>",
+                    escape(&levels.join("; ")),
+                    w.observed,
+                    w.expected
+                );
+            }
+            let _ = write!(h, "</table>");
+        }
+    }
     let _ = write!(h, "<table><tr><th>field</th><th>B<sub>k</sub></th><th>nats</th><th>missing, left</th><th>missing, right</th><th>note</th></tr>");
     for (k, f) in a.fields.iter().enumerate() {
         let fv = &prep.records.fields[k];

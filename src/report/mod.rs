@@ -178,8 +178,15 @@ pub struct Summary {
     pub confidence_cutoff: Option<f64>,
     /// Mean confidence of the links written.
     pub estimated_precision: Option<f64>,
+    /// Its 95% interval, widened by the model check's misfit ([0, 1] when the fit is not
+    /// identified).
+    pub estimated_precision_interval: Option<[f64; 2]>,
     /// Sum of link confidences over the estimated number of true pairs among candidates.
     pub estimated_recall: Option<f64>,
+    /// Its 95% interval, widened by the model check's misfit.
+    pub estimated_recall_interval: Option<[f64; 2]>,
+    /// Observed against expected pattern counts under the fitted model.
+    pub model_check: Option<CheckSummary>,
     /// p |C|.
     pub estimated_true_pairs: f64,
     /// The false-degree distribution.
@@ -199,6 +206,95 @@ pub struct Summary {
     pub warnings: Vec<String>,
     /// How the run was made.
     pub manifest: Manifest,
+}
+
+/// The model check in summary.json.
+#[derive(Debug, Serialize)]
+pub struct CheckSummary {
+    /// Whether the misfit is large enough to move links (the verdict is then not feasible).
+    pub flagged: bool,
+    /// Deviance G^2 over every pattern of every set of passes.
+    pub deviance: f64,
+    /// Patterns in the table.
+    pub cells: usize,
+    /// Total variation between observed and expected pattern shares, all candidate pairs.
+    pub misfit_all: f64,
+    /// The same among the pairs that can be linked (pairwise link probability >= 0.05).
+    pub misfit_linkable: f64,
+    /// Those pairs.
+    pub linkable_pairs: f64,
+    /// The patterns with the largest Pearson residuals among those pairs, worst first.
+    pub worst_patterns: Vec<PatternSummary>,
+    /// The known failures found, in plain words.
+    pub findings: Vec<String>,
+}
+
+/// One agreement pattern in the model check (levels and counts, never values).
+#[derive(Debug, Serialize)]
+pub struct PatternSummary {
+    /// The passes that found its pairs.
+    pub found_by: Vec<String>,
+    /// Per field, the level's name (or "missing").
+    pub levels: Vec<String>,
+    /// Pairs with the pattern.
+    pub observed: f64,
+    /// Pairs the model expects.
+    pub expected: f64,
+    /// (observed - expected) / sqrt(expected).
+    pub pearson_residual: f64,
+}
+
+fn check_summary(prep: &Prepared, a: &Assessment) -> Option<CheckSummary> {
+    let c = prep.check.as_ref()?;
+    let found_by = |s: usize| -> Vec<String> {
+        let mask = prep.strata.as_ref().map_or(u16::MAX, |st| st.masks[s]);
+        prep.pass_stats
+            .iter()
+            .enumerate()
+            .filter(|(j, _)| mask & (1 << j) != 0)
+            .map(|(_, p)| p.name.clone())
+            .collect()
+    };
+    Some(CheckSummary {
+        flagged: c.flagged(),
+        deviance: c.deviance,
+        cells: c.cells,
+        misfit_all: c.misfit_all,
+        misfit_linkable: c.misfit_matters,
+        linkable_pairs: c.pairs_matter,
+        worst_patterns: c
+            .worst
+            .iter()
+            .map(|w| PatternSummary {
+                found_by: found_by(w.stratum),
+                levels: w
+                    .levels
+                    .iter()
+                    .enumerate()
+                    .map(|(k, &l)| {
+                        if l == crate::compare::MISSING_LEVEL {
+                            "missing".to_string()
+                        } else {
+                            prep.comparison.comparators[k]
+                                .level_names()
+                                .get(l as usize)
+                                .cloned()
+                                .unwrap_or_default()
+                        }
+                    })
+                    .collect(),
+                observed: w.observed,
+                expected: w.expected,
+                pearson_residual: w.residual,
+            })
+            .collect(),
+        findings: a
+            .reasons
+            .iter()
+            .filter(|r| r.starts_with("the model check"))
+            .cloned()
+            .collect(),
+    })
 }
 
 /// One input file in the manifest.
@@ -285,16 +381,10 @@ fn per_pass_fits(prep: &Prepared) -> Vec<PassSetFit> {
         .collect()
 }
 
-/// The estimated precision of the links (their mean confidence) and their estimated recall
-/// among the candidate pairs (their confidences over the expected number of true pairs among
-/// the candidates, under the same posterior: with value-frequency weights, the fit's p |C| is
-/// not on the confidences' scale); None where there is nothing to divide by.
+/// The estimated precision of the links and their estimated recall among the candidate
+/// pairs (see `pipeline::link`); None where there is nothing to divide by.
 pub fn estimates(l: &Linkage) -> (Option<f64>, Option<f64>) {
-    let conf: f64 = l.links.iter().map(|&i| l.confidence.p[i]).sum();
-    let precision = (!l.links.is_empty()).then(|| conf / l.links.len() as f64);
-    let expected_true: f64 = l.confidence.p.iter().sum();
-    let recall = (expected_true > 0.0).then(|| (conf / expected_true).min(1.0));
-    (precision, recall)
+    (l.precision.map(|e| e.value), l.recall.map(|e| e.value))
 }
 
 fn summary(
@@ -381,7 +471,10 @@ fn summary(
         links_below_cutoff: below,
         confidence_cutoff: cutoff,
         estimated_precision: precision,
+        estimated_precision_interval: link.and_then(|l| l.precision.map(|e| e.interval)),
         estimated_recall: recall,
+        estimated_recall_interval: link.and_then(|l| l.recall.map(|e| e.interval)),
+        model_check: check_summary(prep, a),
         estimated_true_pairs: a.estimated_true_pairs,
         false_degree: a.false_degree.clone(),
         fit: FitSummary {

@@ -298,6 +298,9 @@ pub struct Outcome {
     /// The verdict and whether the model check flagged misfit.
     pub verdict: Verdict,
     pub misfit: bool,
+    /// The check's misfit share among the pairs that matter, and its signatures found.
+    pub misfit_matters: f64,
+    pub signatures: usize,
     /// The reported interval of the precision, when reported.
     pub precision_interval: Option<[f64; 2]>,
     /// The reported interval of the recall among candidates, when reported.
@@ -407,9 +410,11 @@ pub fn score(prep: &mut Prepared, truth: &HashSet<(u32, u32)>) -> Outcome {
         forecast: fc.map_or(0.0, |f| f.error_rate),
         forecast_interval: fc.map_or([0.0, 0.0], |f| f.interval),
         verdict: l.assessment.verdict,
-        misfit: false,
-        precision_interval: None,
-        recall_interval: None,
+        misfit: prep.check.as_ref().is_some_and(|c| c.flagged()),
+        misfit_matters: prep.check.as_ref().map_or(0.0, |c| c.misfit_matters),
+        signatures: prep.check.as_ref().map_or(0, |c| c.signatures.len()),
+        precision_interval: l.precision.map(|e| e.interval),
+        recall_interval: l.recall.map(|e| e.interval),
     }
 }
 
@@ -533,6 +538,9 @@ pub fn laws_text(prep: &Prepared) -> String {
             .collect(),
         _ => vec![("pooled".to_string(), &prep.fit)],
     };
+    if let Some(c) = &prep.check {
+        out.push_str(&format!("  check: {:?}\n", c.signatures));
+    }
     for (name, f) in fits {
         out.push_str(&format!("  {name}: p {:.4}\n", f.p));
         for (k, fv) in prep.records.fields.iter().enumerate() {

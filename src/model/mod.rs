@@ -16,6 +16,8 @@
 //! per-value weights of value-frequency weighting ([`ValueFrequency`], from value counts).
 
 use crate::compare::{Comparison, PatternCounts, MISSING_LEVEL};
+
+pub mod check;
 use std::collections::HashMap;
 
 /// Smallest probability a cell of m or u may take, so that no weight is infinite.
@@ -1092,7 +1094,7 @@ pub(crate) mod tests {
         // Fixtures from tests/reference/em_fixtures.py: the mixture's log-likelihood maximised
         // directly by scipy.optimize.minimize (BFGS) on the same pattern counts.
         let doc: serde_json::Value =
-            serde_json::from_str(include_str!("../tests/reference/em_fixtures.json"))
+            serde_json::from_str(include_str!("../../tests/reference/em_fixtures.json"))
                 .expect("fixtures");
         for (c, case) in doc["cases"].as_array().expect("cases").iter().enumerate() {
             let levels: Vec<usize> = case["levels"]
