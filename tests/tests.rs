@@ -7,6 +7,8 @@ mod common;
 
 #[path = "it/bad_input.rs"]
 mod bad_input;
+#[path = "it/honesty.rs"]
+mod honesty;
 #[path = "it/link_sample.rs"]
 mod link_sample;
 #[path = "it/match_cmd.rs"]
@@ -17,5 +19,7 @@ mod reliability_synth;
 mod report_html;
 #[path = "it/robustness.rs"]
 mod robustness;
+#[path = "it/scenarios.rs"]
+mod scenarios;
 #[path = "it/tune_synth.rs"]
 mod tune_synth;
