@@ -22,7 +22,7 @@ fn main() {
     let rows: usize = args.get(1).and_then(|r| r.parse().ok()).unwrap_or(20_000);
     let filter = args.get(2).cloned().unwrap_or_default();
     println!(
-        "| scenario | seed | links | prec (est) [truth laws] | recall cand (est) [truth laws] | recall all (est) | lost / forecast | verdict / band | check | misses |"
+        "| scenario | seed | links | prec (est) [truth laws] | recall cand (est) [truth laws] | recall all (est) | lost / forecast | verdict / band | check (misfit share/signatures/duplicate pairs) | misses |"
     );
     println!("|---|---|---|---|---|---|---|---|---|");
     let (mut runs, mut bad) = (0, 0);
@@ -43,10 +43,11 @@ fn main() {
             runs += 1;
             bad += usize::from(!misses.is_empty());
             let check = format!(
-                "{} {:.3}/{}",
+                "{} {:.3}/{}/{:.0}",
                 if o.misfit { "misfit" } else { "ok" },
                 o.misfit_matters,
-                o.signatures
+                o.signatures,
+                o.duplicates
             );
             let all_est = o
                 .est_recall_all

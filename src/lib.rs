@@ -11,6 +11,7 @@
 pub mod block;
 pub mod compare;
 pub mod config;
+pub mod duplicates;
 pub mod error;
 pub mod io;
 pub mod matching;

@@ -77,6 +77,8 @@ pub struct Prepared {
     pub separations: Vec<FieldSeparation>,
     /// The model check of the final laws (None without candidates).
     pub check: Option<ModelCheck>,
+    /// Expected duplicate pairs inside each table (None without candidates).
+    pub duplicates: Option<crate::duplicates::Duplicates>,
     /// Warnings for the user, in plain words (counts only, never record values).
     pub warnings: Vec<String>,
     /// Seconds per stage.
@@ -560,7 +562,7 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
         )
     });
     clock.lap("fitting", &mut timings);
-    Ok(Prepared {
+    let mut prep = Prepared {
         config,
         left,
         right,
@@ -580,9 +582,38 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
         theta,
         separations,
         check,
+        duplicates: None,
         warnings,
         timings,
-    })
+    };
+    if !prep.cands.is_empty() {
+        let mut clock = Clock::new();
+        progress.stage("duplicates");
+        let d = crate::duplicates::estimate(&prep)?;
+        for (pairs, n, side) in [
+            (d.left_pairs, prep.records.n_left(), "left"),
+            (d.right_pairs, prep.records.n_right(), "right"),
+        ] {
+            if pairs >= crate::duplicates::WARN_SHARE * n as f64 {
+                prep.warnings.push(format!(
+                    "about {pairs:.0} pairs of records inside the {side} table look like the same person ({:.1}% of its records): one-to-one linkage assumes one record per person, so remove duplicates first; the estimates carry wider intervals",
+                    100.0 * pairs / n.max(1) as f64
+                ));
+            }
+        }
+        prep.duplicates = Some(d);
+        clock.lap("duplicates", &mut prep.timings);
+    }
+    Ok(prep)
+}
+
+/// The share of the larger table's records in likely duplicate pairs, when it is at least
+/// [`crate::duplicates::WARN_SHARE`].
+pub fn duplicate_share(prep: &Prepared) -> Option<f64> {
+    let d = prep.duplicates?;
+    let share = (d.left_pairs / prep.records.n_left().max(1) as f64)
+        .max(d.right_pairs / prep.records.n_right().max(1) as f64);
+    (share >= crate::duplicates::WARN_SHARE).then_some(share)
 }
 
 /// Expected true pairs a stratum needs before the model check reads its laws.
@@ -815,6 +846,22 @@ fn match_and_assess(prep: &mut Prepared, progress: &dyn Progress) -> (Matching, 
     if let Some(check) = prep.check.as_ref().filter(|c| c.flagged()) {
         apply_check(prep, check, &matching, &mut assessment);
     }
+    if let Some(share) = duplicate_share(prep) {
+        // Each duplicate record can take a link from its twin record's partner, or leave one.
+        assessment.reasons.push(format!(
+            "{:.1}% of the records of one table look like duplicates of another record of the same table; one-to-one linkage assumes one record per person",
+            100.0 * share
+        ));
+        if assessment.verdict == crate::reliability::Verdict::Feasible {
+            assessment.verdict = crate::reliability::Verdict::Borderline;
+        }
+        if let Some(f) = assessment.forecast.as_mut() {
+            f.interval = [
+                (f.interval[0] - 2.0 * share).max(0.0),
+                (f.interval[1] + 2.0 * share).min(1.0),
+            ];
+        }
+    }
     clock.lap("assessing", &mut prep.timings);
     (matching, assessment)
 }
@@ -908,7 +955,8 @@ fn apply_check(
 /// the number of true pairs among independent pairs; normal approximation, common practice),
 /// widened by the share of the pairs concerned that the model check finds in excess of what
 /// the model expects (pairs of a class the model does not have, which may all be false); an
-/// unidentified fit gives [0, 1].
+/// unidentified fit gives [0, 1]; likely duplicates inside a table widen them by twice their
+/// share (each can take a link or leave one).
 fn estimate_intervals(
     prep: &Prepared,
     links: &[usize],
@@ -927,14 +975,15 @@ fn estimate_intervals(
     let excess = |pairs: &mut dyn Iterator<Item = usize>| {
         check.map_or(0.0, |c| c.excess_share(pairs.map(|i| check_key(prep, i))))
     };
+    let dup = 2.0 * duplicate_share(prep).unwrap_or(0.0);
     let interval = |value: f64, se: f64, widen: f64| Estimate {
         value,
         interval: if unidentified {
             [0.0, 1.0]
         } else {
             [
-                (value - 1.96 * se - widen).max(0.0),
-                (value + 1.96 * se + widen).min(1.0),
+                (value - 1.96 * se - widen - dup).max(0.0),
+                (value + 1.96 * se + widen + dup).min(1.0),
             ]
         },
     };

@@ -187,6 +187,8 @@ pub struct Summary {
     pub estimated_recall_interval: Option<[f64; 2]>,
     /// Observed against expected pattern counts under the fitted model.
     pub model_check: Option<CheckSummary>,
+    /// Expected pairs of records inside each table that are the same person.
+    pub duplicates: Option<crate::duplicates::Duplicates>,
     /// p |C|.
     pub estimated_true_pairs: f64,
     /// The false-degree distribution.
@@ -475,6 +477,7 @@ fn summary(
         estimated_recall: recall,
         estimated_recall_interval: link.and_then(|l| l.recall.map(|e| e.interval)),
         model_check: check_summary(prep, a),
+        duplicates: prep.duplicates,
         estimated_true_pairs: a.estimated_true_pairs,
         false_degree: a.false_degree.clone(),
         fit: FitSummary {

@@ -81,3 +81,26 @@ fn without_names_the_tool_says_it_cannot_tell() {
     assert_ne!(o.verdict.as_str(), "feasible");
     assert_honest("no names", &o);
 }
+
+#[test]
+fn duplicates_inside_a_table_are_counted_and_flagged() {
+    // 5% of each table's 20,000 records get a second, re-keyed record of the same person:
+    // 1,000 duplicate pairs per table, 2,000 in all (synth's own count). The run must find
+    // about that many (within 15%), say the one-to-one assumption fails, and keep its
+    // intervals honest.
+    let c = case("full duplicates .05");
+    let o = scenarios::run(&c, 4, false, false).0;
+    eprintln!("duplicates: {o:?}");
+    assert!(
+        (o.duplicates - 2000.0).abs() <= 300.0,
+        "{} duplicate pairs estimated",
+        o.duplicates
+    );
+    assert!(o.misfit);
+    assert_ne!(o.verdict.as_str(), "feasible");
+    assert_honest("duplicates", &o);
+    // Without duplicates the estimate is near zero (synth makes none; twins and same-name
+    // relatives differ in birth date or given name).
+    let clean = scenarios::run(&case("full n0.5"), 4, false, false).0;
+    assert!(clean.duplicates < 20.0, "{}", clean.duplicates);
+}

@@ -295,9 +295,12 @@ pub struct Outcome {
     /// The forecast mismatch rate and its interval.
     pub forecast: f64,
     pub forecast_interval: [f64; 2],
-    /// The verdict and whether the model check flagged misfit.
+    /// The verdict and whether the model check (or the duplicates inside a table) flagged
+    /// misfit.
     pub verdict: Verdict,
     pub misfit: bool,
+    /// Expected duplicate pairs inside the two tables, as the run estimated them.
+    pub duplicates: f64,
     /// The check's misfit share among the pairs that matter, and its signatures found.
     pub misfit_matters: f64,
     pub signatures: usize,
@@ -410,7 +413,11 @@ pub fn score(prep: &mut Prepared, truth: &HashSet<(u32, u32)>) -> Outcome {
         forecast: fc.map_or(0.0, |f| f.error_rate),
         forecast_interval: fc.map_or([0.0, 0.0], |f| f.interval),
         verdict: l.assessment.verdict,
-        misfit: prep.check.as_ref().is_some_and(|c| c.flagged()),
+        misfit: prep.check.as_ref().is_some_and(|c| c.flagged())
+            || pipeline::duplicate_share(prep).is_some(),
+        duplicates: prep
+            .duplicates
+            .map_or(0.0, |d| d.left_pairs + d.right_pairs),
         misfit_matters: prep.check.as_ref().map_or(0.0, |c| c.misfit_matters),
         signatures: prep.check.as_ref().map_or(0, |c| c.signatures.len()),
         precision_interval: l.precision.map(|e| e.interval),
