@@ -596,7 +596,7 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
         ] {
             if pairs >= crate::duplicates::WARN_SHARE * n as f64 {
                 prep.warnings.push(format!(
-                    "about {pairs:.0} pairs of records inside the {side} table look like the same person ({:.1}% of its records): one-to-one linkage assumes one record per person, so remove duplicates first; the estimates carry wider intervals",
+                    "about {pairs:.0} pairs of records inside the {side} table look like the same person under the fitted model ({:.1}% of its records): either the table holds duplicates, which one-to-one linkage does not expect (remove them first), or the model takes relatives at one address for the same person; the estimates carry wider intervals",
                     100.0 * pairs / n.max(1) as f64
                 ));
             }
@@ -866,17 +866,9 @@ fn match_and_assess(prep: &mut Prepared, progress: &dyn Progress) -> (Matching, 
     (matching, assessment)
 }
 
-/// The stratum and pattern code of pair `i`, as the model check keys them.
-fn check_key(prep: &Prepared, i: usize) -> (usize, u64) {
-    (
-        prep.strata.as_ref().map_or(0, |s| s.stratum_of(i)),
-        prep.comparison.codes[i],
-    )
-}
-
 /// A flagged model check makes a feasible verdict borderline, says why in plain words, and
-/// widens the forecast interval by the share of the chosen pairs that the model cannot
-/// account for (to [0, 1] where a stratum's fit is not identified).
+/// widens the forecast interval by the misplaced pairs over the chosen pairs (to [0, 1] where
+/// a stratum's fit is not identified).
 fn apply_check(
     prep: &Prepared,
     check: &ModelCheck,
@@ -939,7 +931,7 @@ fn apply_check(
     let widen = if unidentified {
         1.0
     } else {
-        check.excess_share(matching.chosen.iter().map(|&i| check_key(prep, i)))
+        (check.misplaced() / matching.chosen.len().max(1) as f64).min(1.0)
     };
     if let Some(f) = a.forecast.as_mut() {
         f.interval = [
@@ -953,9 +945,9 @@ fn apply_check(
 /// candidate pairs (their confidences over all candidates' confidences), with 95% intervals:
 /// the sampling part from the confidences themselves (the sum of c (1 - c) is the variance of
 /// the number of true pairs among independent pairs; normal approximation, common practice),
-/// widened by the share of the pairs concerned that the model check finds in excess of what
-/// the model expects (pairs of a class the model does not have, which may all be false); an
-/// unidentified fit gives [0, 1]; likely duplicates inside a table widen them by twice their
+/// widened, when the model check flags the fit, by the pairs it finds misplaced among those
+/// that can be linked, over the links (or the expected true pairs): the error were each of
+/// them a link labelled wrongly; an unidentified fit gives [0, 1]; likely duplicates inside a table widen them by twice their
 /// share (each can take a link or leave one).
 fn estimate_intervals(
     prep: &Prepared,
@@ -972,9 +964,7 @@ fn estimate_intervals(
     let var_all: f64 = confidence.iter().map(|c| c * (1.0 - c)).sum();
     let check = prep.check.as_ref().filter(|c| c.flagged());
     let unidentified = check.is_some_and(|c| c.unidentified());
-    let excess = |pairs: &mut dyn Iterator<Item = usize>| {
-        check.map_or(0.0, |c| c.excess_share(pairs.map(|i| check_key(prep, i))))
-    };
+    let misplaced = check.map_or(0.0, |c| c.misplaced());
     let dup = 2.0 * duplicate_share(prep).unwrap_or(0.0);
     let interval = |value: f64, se: f64, widen: f64| Estimate {
         value,
@@ -987,20 +977,17 @@ fn estimate_intervals(
             ]
         },
     };
-    let precision = (n > 0.0).then(|| {
-        let w = excess(&mut links.iter().copied());
-        interval(sum / n, var.sqrt() / n, w)
-    });
+    let precision = (n > 0.0).then(|| interval(sum / n, var.sqrt() / n, (misplaced / n).min(1.0)));
     let recall = (expected_true > 0.0).then(|| {
         let value = (sum / expected_true).min(1.0);
-        let w = excess(&mut (0..confidence.len()).filter(|&i| confidence[i] >= MATTERS_FOR_RECALL));
-        interval(value, var_all.sqrt() / expected_true, w)
+        interval(
+            value,
+            var_all.sqrt() / expected_true,
+            (misplaced / expected_true).min(1.0),
+        )
     });
     (precision, recall)
 }
-
-/// Confidence from which a candidate pair counts towards the recall's widening.
-const MATTERS_FOR_RECALL: f64 = 0.05;
 
 /// The feasibility assessment without writing links.
 pub fn assess_only(prep: &mut Prepared, progress: &dyn Progress) -> Assessment {

@@ -88,8 +88,6 @@ pub struct ModelCheck {
     pub worst: Vec<PatternResidual>,
     /// Signatures of known failures.
     pub signatures: Vec<Signature>,
-    /// Per (stratum, pattern code): observed and expected pairs.
-    pub table: BTreeMap<(usize, u64), (f64, f64)>,
 }
 
 impl ModelCheck {
@@ -100,23 +98,11 @@ impl ModelCheck {
             .any(|s| matches!(s, Signature::Unidentified { .. }))
     }
 
-    /// The share of `pairs` (each given by its stratum and pattern code) that sit in their
-    /// pattern's excess over what the model expects: pairs the model cannot account for,
-    /// which may all be of a class it does not have. Estimates over these pairs are widened
-    /// by this share.
-    pub fn excess_share(&self, pairs: impl Iterator<Item = (usize, u64)>) -> f64 {
-        let (mut n, mut excess) = (0.0, 0.0);
-        for key in pairs {
-            n += 1.0;
-            if let Some(&(obs, exp)) = self.table.get(&key) {
-                excess += (1.0 - exp / obs).max(0.0);
-            }
-        }
-        if n > 0.0 {
-            excess / n
-        } else {
-            0.0
-        }
+    /// Pairs among those that can be linked that are not where the model expects them:
+    /// sum |n - E| over their patterns. Were each of them a link the model labels wrongly, the
+    /// estimates over n links would be off by this over n: the widening of the intervals.
+    pub fn misplaced(&self) -> f64 {
+        self.misfit_matters * self.pairs_matter
     }
 
     /// Whether the misfit is large enough to move links: a signature, or a misfit share
@@ -260,11 +246,6 @@ pub fn check(
             }
         }
     }
-    let table: BTreeMap<(usize, u64), (f64, f64)> = counts
-        .keys()
-        .zip(&cells)
-        .map(|(&key, c)| (key, (c.observed, c.expected)))
-        .collect();
     cells.retain(|c| c.link_probability >= MATTERS && (c.observed >= 5.0 || c.expected >= 5.0));
     cells.sort_by(|a, b| b.residual.abs().total_cmp(&a.residual.abs()));
     cells.truncate(5);
@@ -276,7 +257,6 @@ pub fn check(
         pairs_matter,
         worst: cells,
         signatures,
-        table,
     }
 }
 
