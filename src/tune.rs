@@ -7,18 +7,48 @@
 //!
 //! Pair completeness is measured against the loosest reference there is, no blocking at all,
 //! on a seeded sample of left records: each sampled record is compared with every right record,
-//! and the fitted model gives each pair its probability of being the record's true partner
-//! (one-to-one from the record's side: exp(theta) / (1 + sum exp(theta'))). A scheme's
-//! completeness is the share of that probability mass its candidate pairs keep. The sample is
-//! capped so that sample x right records stays below [`MAX_REFERENCE_PAIRS`].
+//! and the fitted model gives each pair its probability of being the record's true partner. A
+//! record has at most one partner: with chance pi it has one, equally likely to be any of the
+//! nr right records a priori, so a pair's posterior is pi LR / (pi sum LR' + (1 - pi) nr), with
+//! pi fitted by EM on the sample. The likelihood ratios take the fitted m-law, the u-law of the
+//! reference's own (random) pairs, and each right record's chance of being free, 1 minus the
+//! run's confidence that another left record holds it. A scheme's completeness is the expected
+//! number of true pairs among the sample's candidates under the scheme over the expected number
+//! of the sample's true pairs (sum of the posteriors). The sample is capped so that sample x
+//! right records stays below [`MAX_REFERENCE_PAIRS`].
+//!
+//! The miss this replaced (2000 synth rows, overlap 0.5, noise 0.8, seed 3, all passes): 54.8%
+//! against a true 92.8%. The reference then took theta with the pairwise prior ln(p / (1 - p))
+//! of the candidates (p about 0.5), nr times too high for a record's pairs with every right
+//! record, so the records with no partner put most of a partner's mass in the denominator (1638
+//! true pairs expected among 2000 records, against 1000). With the prior alone fixed, the
+//! blocked u-law undervalued agreement (770 of the 1000 found), and without the right records'
+//! claims a partnerless record took its relative's right record (69 false pairs' mass, 33 of
+//! them on right records whose own partner held them). Now 91.7% (mass 1017). What is left is
+//! mostly household members of partnerless records (same surname, address and phone) whose
+//! right record nobody else holds: the model takes them for true pairs, so at low overlap and
+//! high noise (4000 rows, overlap 0.2, noise 0.8, seed 8) the estimate is 76.6% against about
+//! 91%.
 
 use crate::block::{self, Candidates, Pass};
+use crate::compare::{self, Comparison, MISSING_LEVEL};
 use crate::matching;
-use crate::pipeline::{score, score_one_to_one, Prepared};
+use crate::model;
+use crate::pipeline::{pair_weights, score_one_to_one, Prepared};
+use crate::reliability::confidence::{self, BpOptions};
 use crate::reliability::forecast::{self, ForecastOptions};
 use crate::rng::Rng;
 use serde::Serialize;
+use std::collections::HashMap;
 use std::time::Instant;
+
+/// Belief propagation for the right records' claims in the reference (rough is enough).
+const CLAIM_BP: BpOptions = BpOptions {
+    max_iterations: 40,
+    damping: 0.5,
+    tolerance: 1e-4,
+    theta_cutoff: -9.0,
+};
 
 /// Most pairs compared for the reference sample.
 pub const MAX_REFERENCE_PAIRS: usize = 5_000_000;
@@ -34,7 +64,7 @@ pub struct SchemeResult {
     pub d: f64,
     /// Share of left records with at least one candidate.
     pub left_with_candidate: f64,
-    /// Estimated share of true pairs among the candidates.
+    /// Estimated pair completeness: the share of the true pairs that are candidates.
     pub completeness: f64,
     /// sqrt(d) B.
     pub margin: f64,
@@ -80,20 +110,136 @@ fn reference(prep: &Prepared, opts: &TuneOptions) -> Reference {
         right: (0..sampled.len()).flat_map(|_| 0..nr as u32).collect(),
         passes: vec![0; sampled.len() * nr],
     };
-    let theta = score(prep, &cands);
+    // The weights with the u-law of random pairs: the reference's pairs are nearly all false
+    // (at most one true pair per sampled record among nr), so each field's level shares among
+    // them are the u-probabilities of two records drawn at random. The fitted u-law describes
+    // the false candidates of blocking, which agree far more often (on the blocking keys
+    // above all) and would undervalue agreement here.
+    let comparison = compare::compare(&prep.records, &cands);
+    let mut fit = prep.fit.clone();
+    fit.u = random_pair_u(&comparison);
+    let (mut weight, _) = pair_weights(
+        &prep.records,
+        &cands,
+        &comparison,
+        &fit,
+        None,
+        &prep.frequency,
+        None,
+    );
+    // One-to-one from the right side too: a right record is free for a sampled record only
+    // when no other left record has it, and the run's confidences say how likely that is.
+    // Without it, a record whose partner is missing takes a relative's right record (same
+    // surname, address and phone) for its own even when that relative's own record holds it.
+    let marg = confidence::marginals(
+        nl,
+        &prep.cands.left,
+        &prep.cands.right,
+        &prep.theta,
+        &CLAIM_BP,
+    );
+    let mut claim = vec![0.0f64; nr];
+    for (&b, &p) in prep.cands.right.iter().zip(&marg.p) {
+        claim[b as usize] += p;
+    }
+    let free = |q: f64| (1.0 - q).max(1e-12).ln();
+    let free_of_all: Vec<f64> = claim.iter().map(|&q| free(q)).collect();
+    for (k, &a) in sampled.iter().enumerate() {
+        let w = &mut weight[k * nr..(k + 1) * nr];
+        for (x, f) in w.iter_mut().zip(&free_of_all) {
+            *x += f;
+        }
+        let lo = prep.cands.left.partition_point(|&x| x < a);
+        let hi = prep.cands.left.partition_point(|&x| x <= a);
+        for i in lo..hi {
+            let b = prep.cands.right[i] as usize;
+            w[b] += free(claim[b] - marg.p[i]) - free_of_all[b];
+        }
+    }
+    // Per sampled record: the log of its likelihood ratios' sum over all right records.
+    let log_sum: Vec<f64> = (0..sampled.len())
+        .map(|k| {
+            let w = &weight[k * nr..(k + 1) * nr];
+            let hi = w.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+            hi + w.iter().map(|x| (x - hi).exp()).sum::<f64>().ln()
+        })
+        .collect();
+    let has_partner = partner_share(&log_sum, nr);
+    let offset = (has_partner / (1.0 - has_partner)).ln() - (nr as f64).ln();
     let partners = (0..sampled.len())
         .map(|k| {
-            let t = &theta[k * nr..(k + 1) * nr];
-            let hi = t.iter().copied().fold(0.0f64, f64::max);
-            let z: f64 = (-hi).exp() + t.iter().map(|x| (x - hi).exp()).sum::<f64>();
-            t.iter()
+            let w = &weight[k * nr..(k + 1) * nr];
+            // The record's chance of having a partner at all, then each right record's share.
+            let any = 1.0 / (1.0 + (-(log_sum[k] + offset)).exp());
+            w.iter()
                 .enumerate()
-                .map(|(b, x)| (b as u32, (x - hi).exp() / z))
+                .map(|(b, x)| (b as u32, any * (x - log_sum[k]).exp()))
                 .filter(|&(_, p)| p > 1e-9)
                 .collect()
         })
         .collect();
     Reference { sampled, partners }
+}
+
+/// Per field, the shares of its observed levels among the pairs of `comparison`, floored at
+/// [`model::FLOOR`] as the fit's laws are.
+fn random_pair_u(comparison: &Comparison) -> Vec<Vec<f64>> {
+    let mut counts: Vec<Vec<f64>> = comparison
+        .level_counts()
+        .iter()
+        .map(|&n| vec![0.0; n])
+        .collect();
+    let mut by_code: HashMap<u64, usize> = HashMap::new();
+    for &code in &comparison.codes {
+        *by_code.entry(code).or_default() += 1;
+    }
+    // Whole counts, so the order of the sums cannot change a bit of the result.
+    for (&code, &n) in &by_code {
+        let n = n as f64;
+        for (k, &l) in comparison.levels_of(code).iter().enumerate() {
+            if l != MISSING_LEVEL {
+                counts[k][l as usize] += n;
+            }
+        }
+    }
+    for c in &mut counts {
+        let total: f64 = c.iter().sum();
+        let n = c.len() as f64;
+        for x in c.iter_mut() {
+            *x = if total > 0.0 { *x / total } else { 1.0 / n };
+            *x = x.max(model::FLOOR);
+        }
+        let total: f64 = c.iter().sum();
+        c.iter_mut().for_each(|x| *x /= total);
+    }
+    counts
+}
+
+/// The share of left records that have a partner, fitted by EM on the reference: a record has
+/// a partner with chance `pi`, uniform over the `nr` right records, so given its likelihood
+/// ratios (log of their sum `log_sum[k]`) its chance of having one is
+/// pi L / (pi L + (1 - pi) nr); `pi` is the mean of these at the fixed point.
+fn partner_share(log_sum: &[f64], nr: usize) -> f64 {
+    if log_sum.is_empty() || nr == 0 {
+        return 0.0;
+    }
+    let ln_nr = (nr as f64).ln();
+    let mut pi = 0.5f64;
+    for _ in 0..200 {
+        let offset = (pi / (1.0 - pi)).ln() - ln_nr;
+        let next = log_sum
+            .iter()
+            .map(|l| 1.0 / (1.0 + (-(l + offset)).exp()))
+            .sum::<f64>()
+            / log_sum.len() as f64;
+        let next = next.clamp(1e-9, 1.0 - 1e-9);
+        let done = (next - pi).abs() < 1e-9;
+        pi = next;
+        if done {
+            break;
+        }
+    }
+    pi
 }
 
 /// Evaluates each named scheme (a list of passes) against the reference.
