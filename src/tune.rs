@@ -94,9 +94,9 @@ struct Reference {
     partners: Vec<Vec<(u32, f64)>>,
 }
 
-fn reference(prep: &Prepared, opts: &TuneOptions) -> Reference {
+fn reference(prep: &Prepared, opts: &TuneOptions, max_pairs: usize) -> Reference {
     let (nl, nr) = (prep.records.n_left(), prep.records.n_right());
-    let cap = (MAX_REFERENCE_PAIRS / nr.max(1)).max(1);
+    let cap = (max_pairs / nr.max(1)).max(1);
     let size = opts.sample.min(cap).min(nl);
     let mut order: Vec<u32> = (0..nl as u32).collect();
     Rng::new(opts.seed ^ 0x7E57).shuffle(&mut order);
@@ -242,13 +242,94 @@ fn partner_share(log_sum: &[f64], nr: usize) -> f64 {
     pi
 }
 
+/// The expected true pairs of each sampled record that `cands` keeps.
+fn kept_per_record(reference: &Reference, cands: &Candidates) -> Vec<f64> {
+    reference
+        .sampled
+        .iter()
+        .zip(&reference.partners)
+        .map(|(&a, partners)| {
+            let lo = cands.left.partition_point(|&x| x < a);
+            let hi = cands.left.partition_point(|&x| x <= a);
+            let rights = &cands.right[lo..hi];
+            partners
+                .iter()
+                .filter(|(b, _)| rights.binary_search(b).is_ok())
+                .map(|p| p.1)
+                .sum::<f64>()
+        })
+        .collect()
+}
+
+/// Pair completeness of a candidate set with a 95% interval.
+#[derive(Debug, Clone, Copy, Serialize)]
+pub struct Completeness {
+    /// Expected true pairs kept over expected true pairs, in the sample.
+    pub value: f64,
+    /// The ratio estimator's 95% interval (delta method over the sampled records: variance
+    /// of kept - R mass per record over n mean(mass)^2; Cochran, Sampling Techniques, for the
+    /// ratio estimator; normal approximation).
+    pub interval: [f64; 2],
+    /// Left records sampled.
+    pub sampled: usize,
+    /// Expected true pairs of the sampled records.
+    pub expected_true: f64,
+}
+
+/// The pair completeness of `cands` (the run's own candidates, say) against no blocking on a
+/// seeded sample of `sample` left records, each compared with every right record, with at
+/// most `max_pairs` pairs compared in all; None when no sampled record has a partner.
+pub fn completeness(
+    prep: &Prepared,
+    cands: &Candidates,
+    sample: usize,
+    max_pairs: usize,
+    seed: u64,
+) -> Option<Completeness> {
+    let reference = reference(
+        prep,
+        &TuneOptions {
+            sample,
+            seed,
+            replicates: 0,
+        },
+        max_pairs,
+    );
+    let mass: Vec<f64> = reference
+        .partners
+        .iter()
+        .map(|p| p.iter().map(|x| x.1).sum())
+        .collect();
+    let kept = kept_per_record(&reference, cands);
+    let n = mass.len() as f64;
+    let total: f64 = mass.iter().sum();
+    if total <= 0.0 || n < 2.0 {
+        return None;
+    }
+    let r = (kept.iter().sum::<f64>() / total).min(1.0);
+    let mean = total / n;
+    let var = kept
+        .iter()
+        .zip(&mass)
+        .map(|(k, m)| (k - r * m).powi(2))
+        .sum::<f64>()
+        / (n - 1.0);
+    let se = (var / n).sqrt() / mean;
+    Some(Completeness {
+        value: r,
+        interval: [(r - 1.96 * se).max(0.0), (r + 1.96 * se).min(1.0)],
+        sampled: reference.sampled.len(),
+        expected_true: total,
+    })
+}
+
 /// Evaluates each named scheme (a list of passes) against the reference.
 pub fn evaluate(
     prep: &Prepared,
     schemes: &[(String, Vec<Pass>)],
     opts: &TuneOptions,
 ) -> Vec<SchemeResult> {
-    let reference = reference(prep, opts);
+    let reference = reference(prep, opts, MAX_REFERENCE_PAIRS);
     let mass: f64 = reference.partners.iter().flatten().map(|p| p.1).sum();
     let (nl, nr) = (prep.records.n_left(), prep.records.n_right());
     let true_pairs_total = if reference.sampled.is_empty() {
@@ -262,21 +343,7 @@ pub fn evaluate(
         .map(|(name, passes)| {
             let clock = Instant::now();
             let (cands, _) = block::candidates(&prep.records, passes);
-            let kept: f64 = reference
-                .sampled
-                .iter()
-                .zip(&reference.partners)
-                .map(|(&a, partners)| {
-                    let lo = cands.left.partition_point(|&x| x < a);
-                    let hi = cands.left.partition_point(|&x| x <= a);
-                    let rights = &cands.right[lo..hi];
-                    partners
-                        .iter()
-                        .filter(|(b, _)| rights.binary_search(b).is_ok())
-                        .map(|p| p.1)
-                        .sum::<f64>()
-                })
-                .sum();
+            let kept: f64 = kept_per_record(&reference, &cands).iter().sum();
             let completeness = if mass > 0.0 {
                 (kept / mass).min(1.0)
             } else {

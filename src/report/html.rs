@@ -444,6 +444,14 @@ pub fn page(prep: &Prepared, l: &Linkage, review: &[usize], tune: Option<&[TuneR
             100.0 * e.interval[1]
         )
     });
+    let est_recall_all = l.recall_all.map_or("n/a".to_string(), |e| {
+        format!(
+            "{:.1}% ({:.1}–{:.1}%)",
+            100.0 * e.value,
+            100.0 * e.interval[0],
+            100.0 * e.interval[1]
+        )
+    });
     let _ = write!(
         h,
         "<section><h2>The run in numbers</h2><div class=\"tiles\">"
@@ -455,6 +463,7 @@ pub fn page(prep: &Prepared, l: &Linkage, review: &[usize], tune: Option<&[TuneR
         ("right unlinked", unlinked_r.to_string()),
         ("for review", review.len().to_string()),
         ("estimated precision", est_precision),
+        ("estimated recall, all true pairs", est_recall_all),
     ] {
         let _ = write!(
             h,

@@ -187,6 +187,13 @@ pub struct Summary {
     pub estimated_recall_interval: Option<[f64; 2]>,
     /// Observed against expected pattern counts under the fitted model.
     pub model_check: Option<CheckSummary>,
+    /// Estimated share of all true pairs that blocking made candidates, with its interval
+    /// (against no blocking on a sample of left records).
+    pub estimated_pair_completeness: Option<crate::tune::Completeness>,
+    /// Estimated recall over all true pairs (recall among candidates x completeness).
+    pub estimated_recall_all: Option<f64>,
+    /// Its interval.
+    pub estimated_recall_all_interval: Option<[f64; 2]>,
     /// Expected pairs of records inside each table that are the same person.
     pub duplicates: Option<crate::duplicates::Duplicates>,
     /// p |C|.
@@ -477,6 +484,9 @@ fn summary(
         estimated_recall: recall,
         estimated_recall_interval: link.and_then(|l| l.recall.map(|e| e.interval)),
         model_check: check_summary(prep, a),
+        estimated_pair_completeness: link.and_then(|l| l.completeness),
+        estimated_recall_all: link.and_then(|l| l.recall_all.map(|e| e.value)),
+        estimated_recall_all_interval: link.and_then(|l| l.recall_all.map(|e| e.interval)),
         duplicates: prep.duplicates,
         estimated_true_pairs: a.estimated_true_pairs,
         false_degree: a.false_degree.clone(),

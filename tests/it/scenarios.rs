@@ -409,7 +409,7 @@ pub fn score(prep: &mut Prepared, truth: &HashSet<(u32, u32)>) -> Outcome {
         recall_cand: ratio(true_links, findable),
         est_recall_cand: er.unwrap_or(1.0),
         recall_all: ratio(true_links, all_true),
-        est_recall_all: None,
+        est_recall_all: l.recall_all.map(|e| (e.value, e.interval)),
         forecast: fc.map_or(0.0, |f| f.error_rate),
         forecast_interval: fc.map_or([0.0, 0.0], |f| f.interval),
         verdict: l.assessment.verdict,
