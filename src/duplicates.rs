@@ -10,11 +10,9 @@
 
 use crate::block::{self, Candidates};
 use crate::compare;
-use crate::config::FieldSpec;
 use crate::error::Result;
-use crate::io::Table;
 use crate::pipeline::{self, Prepared};
-use crate::records;
+use crate::records::{FieldValues, Records};
 
 /// Expected duplicate pairs in each table.
 #[derive(Debug, Clone, Copy, serde::Serialize)]
@@ -29,26 +27,36 @@ pub struct Duplicates {
 /// counts the one-to-one assumption as broken.
 pub const WARN_SHARE: f64 = 0.01;
 
-fn within(prep: &Prepared, table: &Table, left_side: bool) -> Result<f64> {
-    let specs: Vec<FieldSpec> = prep
-        .config
-        .field
-        .iter()
-        .map(|f| {
-            let col = if left_side {
-                f.left_column()
-            } else {
-                f.right_column()
-            }
-            .to_string();
-            FieldSpec {
-                left: Some(col.clone()),
-                right: Some(col),
-                ..f.clone()
-            }
-        })
-        .collect();
-    let recs = records::build(table, table, &specs)?;
+fn within(prep: &Prepared, left_side: bool) -> Result<f64> {
+    // The run's cleaned, interned values of one side on both sides of a new record set: no
+    // value is cleaned again.
+    let pick = |fv: &FieldValues| -> FieldValues {
+        let (ids, counts) = if left_side {
+            (&fv.left, &fv.left_counts)
+        } else {
+            (&fv.right, &fv.right_counts)
+        };
+        FieldValues {
+            spec: fv.spec.clone(),
+            dict: fv.dict.clone(),
+            dates: fv.dates.clone(),
+            numbers: fv.numbers.clone(),
+            left: ids.clone(),
+            right: ids.clone(),
+            left_counts: counts.clone(),
+            right_counts: counts.clone(),
+        }
+    };
+    let ids = if left_side {
+        &prep.records.left_ids
+    } else {
+        &prep.records.right_ids
+    };
+    let recs = Records {
+        left_ids: ids.clone(),
+        right_ids: ids.clone(),
+        fields: prep.records.fields.iter().map(pick).collect(),
+    };
     let passes = pipeline::passes_from(&prep.config, &prep.config.block, "block")?;
     let (all, _) = block::candidates(&recs, &passes);
     let mut cands = Candidates::default();
@@ -94,7 +102,7 @@ fn within(prep: &Prepared, table: &Table, left_side: bool) -> Result<f64> {
 /// The expected duplicate pairs inside each table.
 pub fn estimate(prep: &Prepared) -> Result<Duplicates> {
     Ok(Duplicates {
-        left_pairs: within(prep, &prep.left, true)?,
-        right_pairs: within(prep, &prep.right, false)?,
+        left_pairs: within(prep, true)?,
+        right_pairs: within(prep, false)?,
     })
 }
