@@ -72,7 +72,7 @@ fn within(prep: &Prepared, left_side: bool) -> Result<f64> {
     }
     let comparison = compare::compare(&recs, &cands);
     let no_frequency = vec![None; recs.fields.len()];
-    let (weight, _) = pipeline::pair_weights(
+    let (weight, _) = crate::fit::pair_weights(
         &recs,
         &cands,
         &comparison,

@@ -13,6 +13,7 @@ pub mod compare;
 pub mod config;
 pub mod duplicates;
 pub mod error;
+pub mod fit;
 pub mod io;
 pub mod matching;
 pub mod model;

@@ -8,16 +8,16 @@ use crate::block::{self, Candidates, Pass, PassStats};
 use crate::compare::{self, Comparison, PatternCounts, MISSING_LEVEL};
 use crate::config::Config;
 use crate::error::{Error, Result};
+use crate::fit::{self, pair_weights, Fitted, ONE_TO_ONE_ROUNDS, REFINEMENT_BP};
 use crate::io::{self, Encoding, ReadSpec, Table};
 use crate::matching::{self, Matching};
 use crate::model::check::ModelCheck;
-use crate::model::{self, EmOptions, Fit, Strata, ValueFrequency};
-use crate::records::{self, Records, MISSING};
+use crate::model::{self, Fit, Strata, ValueFrequency};
+use crate::records::{self, Records};
 use crate::reliability::confidence::{self, BpOptions, Marginals};
 use crate::reliability::forecast::{self, ForecastOptions};
 use crate::reliability::separation::{self, FieldSeparation};
 use crate::reliability::{self, AssessInput, Assessment, VerdictRule};
-use std::collections::HashMap;
 use std::time::Instant;
 
 /// Receives stage names as they start (for progress lines); the core never prints.
@@ -177,76 +177,6 @@ fn read_side(cfg: &Config, left: bool) -> Result<Table> {
     io::read_table(&cfg.resolve(&spec.path), &read)
 }
 
-/// Laws known from outside the EM: m from the labelled pairs and u from random pairs, as the
-/// config asks.
-fn known_laws(
-    config: &Config,
-    records: &Records,
-    comparison: &Comparison,
-    counts: &PatternCounts,
-) -> Result<model::Known> {
-    let levels_of = |cands: &Candidates| -> Vec<Vec<u8>> {
-        let c = compare::compare(records, cands);
-        c.codes
-            .iter()
-            .map(|&code| comparison.levels_of(code))
-            .collect()
-    };
-    let mut known = model::Known::default();
-    if let Some(path) = &config.model.labelled {
-        let path = config.resolve(path);
-        let lmap: HashMap<&str, u32> = records
-            .left_ids
-            .iter()
-            .enumerate()
-            .map(|(i, s)| (s.as_str(), i as u32))
-            .collect();
-        let rmap: HashMap<&str, u32> = records
-            .right_ids
-            .iter()
-            .enumerate()
-            .map(|(i, s)| (s.as_str(), i as u32))
-            .collect();
-        let mut cands = Candidates::default();
-        for (l, r, line) in io::read_id_pairs(&path)? {
-            let find = |map: &HashMap<&str, u32>, id: &str, col: &str| {
-                map.get(id).copied().ok_or_else(|| {
-                    Error::input(format!(
-                        "id `{id}` is not in the {} table",
-                        &col[..col.len() - 3]
-                    ))
-                    .with_file(&path)
-                    .with_line(line)
-                    .with_column(col)
-                })
-            };
-            cands.left.push(find(&lmap, &l, "left_id")?);
-            cands.right.push(find(&rmap, &r, "right_id")?);
-            cands.passes.push(0);
-        }
-        if cands.is_empty() {
-            return Err(Error::input("no labelled pairs in the file").with_file(&path));
-        }
-        known.m = Some(model::law_of(&counts.levels, &levels_of(&cands)));
-        known.fix_m = config.model.labelled_use.as_deref() == Some("fix");
-    }
-    if config.model.u_from.as_deref() == Some("random")
-        && records.n_left() > 0
-        && records.n_right() > 0
-    {
-        let n = config.model.random_pairs.unwrap_or(200_000);
-        let mut rng = crate::rng::Rng::new(config.assess.seed ^ 0x0A11);
-        let mut cands = Candidates::default();
-        for _ in 0..n {
-            cands.left.push(rng.below(records.n_left()) as u32);
-            cands.right.push(rng.below(records.n_right()) as u32);
-            cands.passes.push(0);
-        }
-        known.u = Some(model::law_of(&counts.levels, &levels_of(&cands)));
-    }
-    Ok(known)
-}
-
 /// Ready-to-run passes from a list of pass specs (`at` names the list in errors).
 pub fn passes_from(
     config: &Config,
@@ -363,161 +293,24 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
     clock.lap("comparing", &mut timings);
 
     progress.stage("fitting");
-    let known = known_laws(&config, &records, &comparison, &counts)?;
-    let fit = if cands.is_empty() {
-        model::null_fit(&counts.levels)
-    } else {
-        let p_hint = records.n_left().min(records.n_right()) as f64 / cands.len() as f64;
-        let f = model::fit(
-            &counts,
-            &EmOptions {
-                max_iterations: config.model.max_iterations,
-                tolerance: config.model.tolerance,
-                p_hint,
-                known: known.clone(),
-            },
-        );
-        if !f.converged {
-            warnings.push(format!(
-                "EM stopped at the cap of {} iterations before converging; fields: {}",
-                config.model.max_iterations,
-                config
-                    .field
-                    .iter()
-                    .map(|f| f.name.as_str())
-                    .collect::<Vec<_>>()
-                    .join(", ")
-            ));
-        }
-        f
-    };
-    // The fit and its one-to-one refinement use field-level weights; value-frequency tables
-    // are then estimated from the refined link probabilities of the candidate pairs.
-    let no_frequency: Vec<Option<ValueFrequency>> = vec![None; records.fields.len()];
-    let (_, mut theta) = pair_weights(
+    let Fitted {
+        fit,
+        plain_fit,
+        dependence,
+        strata,
+        link_log_odds,
+        pooled_link_log_odds,
+        frequency,
+        weight,
+        theta,
+    } = fit::fit(
+        &config,
         &records,
         &cands,
         &comparison,
-        &fit,
-        None,
-        &no_frequency,
-        None,
-    );
-    let mut strata = Some(Strata::new(&cands.passes))
-        .filter(|s| config.model.per_pass && s.masks.len() > 1 && !known.any_fixed());
-    let plain_fit = fit.clone();
-    let mut fit = fit;
-    let mut link_prob: Vec<f64> = theta.iter().map(|&t| confidence::pairwise(t)).collect();
-    let mut gamma: Vec<f64> = Vec::new();
-    let mut link_log_odds: Vec<f64> = Vec::new();
-    let mut pooled_link_log_odds: Option<f64> = None;
-    if !cands.is_empty() {
-        // The refinement only needs shares per pattern, so a looser BP serves; the reported
-        // confidences use the default settings.
-        let rough = REFINEMENT_BP;
-        // The pooled refinement first; the strata start from its link probabilities (from
-        // plain EM's, a stratum holding few false pairs can take true pairs' leftover mass
-        // for its false law and never recover).
-        let rounds = ONE_TO_ONE_ROUNDS + if strata.is_some() { STRATA_ROUNDS } else { 0 };
-        let pooled_group = vec![0u32; cands.len()];
-        for round in 0..rounds {
-            let marg =
-                confidence::marginals(records.n_left(), &cands.left, &cands.right, &theta, &rough);
-            gamma = pattern_shares(&comparison, &counts, &marg.p);
-            let stratified = round >= ONE_TO_ONE_ROUNDS;
-            // m by leave-one-field-out from the link probabilities of this round (see
-            // model::leave_one_out_m), u, p and the missing shares by the M-step.
-            let pooled_m = model::leave_one_out_m(&comparison, &[&fit], |_| 0, &marg.p);
-            let strata_m = strata
-                .as_ref()
-                .filter(|s| stratified && !s.fits.is_empty())
-                .map(|s| {
-                    let fits: Vec<&Fit> = s.fits.iter().collect();
-                    model::leave_one_out_m(&comparison, &fits, |i| s.stratum_of(i), &marg.p)
-                });
-            fit = model::fit_from_shares(&counts, &gamma, &fit, &known);
-            fit.m = pooled_m.into_iter().next().unwrap_or_default();
-            known.apply_m(&mut fit.m);
-            if let (Some(s), true) = (strata.as_mut(), stratified) {
-                s.refit(&comparison, &marg.p, &fit);
-                if let Some(ms) = strata_m {
-                    for (f, m) in s.fits.iter_mut().zip(ms) {
-                        f.m = m;
-                    }
-                }
-            }
-            let st = strata.as_ref().filter(|_| stratified);
-            let (group, fits): (&[u32], Vec<&Fit>) = match st {
-                Some(s) => (&s.of_pair, s.fits.iter().collect()),
-                None => (&pooled_group, vec![&fit]),
-            };
-            if link_log_odds.len() != fits.len() {
-                // The pooled rounds' prior, kept when the strata take over.
-                pooled_link_log_odds = link_log_odds.first().copied();
-                // Each stratum starts from its share's log odds, moved as far as the pooled
-                // prior has moved from the pooled share's.
-                let shift = pooled_link_log_odds.map_or(0.0, |l| l - fit.prior_log_odds());
-                link_log_odds = fits.iter().map(|f| f.prior_log_odds() + shift).collect();
-            }
-            confidence::link_prior_step(
-                records.n_left(),
-                &cands.left,
-                &cands.right,
-                group,
-                &mut link_log_odds,
-                &marg.p,
-                &rough,
-            );
-            (_, theta) = pair_weights(
-                &records,
-                &cands,
-                &comparison,
-                &fit,
-                st,
-                &no_frequency,
-                Some(&link_log_odds),
-            );
-            link_prob = marg.p;
-        }
-        if link_log_odds.len() == 1 {
-            pooled_link_log_odds = link_log_odds.first().copied();
-        }
-    }
-    let dependence = if gamma.is_empty() {
-        Vec::new()
-    } else {
-        model::dependence(&counts, &gamma)
-    };
-    for d in &dependence {
-        if d.is_strong() {
-            warnings.push(format!(
-                "fields `{}` and `{}` move together among candidate pairs (phi {:.2} among true pairs, {:.2} among false pairs): the model counts their evidence twice; compare only one of them",
-                config.field[d.a].name, config.field[d.b].name, d.phi_m, d.phi_u
-            ));
-        }
-    }
-    let frequency: Vec<Option<ValueFrequency>> = records
-        .fields
-        .iter()
-        .enumerate()
-        .map(|(k, fv)| {
-            fv.spec.frequency.then(|| {
-                let agreeing = (0..cands.len())
-                    .filter(|&i| comparison.level(comparison.codes[i], k) == 0)
-                    .map(|i| (fv.left[cands.left[i] as usize], link_prob[i]));
-                model::value_frequency_on_candidates(&fv.left_counts, &fv.right_counts, agreeing)
-            })
-        })
-        .collect();
-    let (weight, theta) = pair_weights(
-        &records,
-        &cands,
-        &comparison,
-        &fit,
-        strata.as_ref(),
-        &frequency,
-        (!link_log_odds.is_empty()).then_some(&link_log_odds[..]),
-    );
+        &counts,
+        &mut warnings,
+    )?;
     let names: Vec<String> = config.field.iter().map(|f| f.name.clone()).collect();
     let split: Vec<Option<f64>> = frequency
         .iter()
@@ -546,27 +339,15 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
             }
         }
     }
-    let check = (!cands.is_empty()).then(|| {
-        let fits: Vec<&Fit> = match &strata {
-            Some(s) => s.fits.iter().collect(),
-            None => vec![&fit],
-        };
-        let prior: Vec<f64> = if link_log_odds.len() == fits.len() {
-            link_log_odds.clone()
-        } else {
-            fits.iter().map(|f| f.prior_log_odds()).collect()
-        };
-        let mut free = vec![true; records.fields.len()];
-        for p in &passes {
-            p.parts.iter().for_each(|k| free[k.field] = false);
-        }
-        model::check::check(
-            &comparison,
-            &model::check::CheckStrata { fits, prior, free },
-            |i| strata.as_ref().map_or(0, |s| s.stratum_of(i)),
-            CHECK_MIN_TRUE,
-        )
-    });
+    let check = fit::check(
+        &records,
+        &cands,
+        &comparison,
+        &passes,
+        &fit,
+        strata.as_ref(),
+        &link_log_odds,
+    );
     clock.lap("fitting", &mut timings);
     let mut prep = Prepared {
         config,
@@ -634,37 +415,6 @@ const COMPLETENESS_PAIRS: usize = 2_000_000;
 /// Share of true pairs lost in blocking from which the run warns.
 const COMPLETENESS_WARN: f64 = 0.02;
 
-/// Expected true pairs a stratum needs before the model check reads its laws.
-const CHECK_MIN_TRUE: f64 = 100.0;
-
-/// The looser BP of the one-to-one refinement and the link prior's fit.
-const REFINEMENT_BP: BpOptions = BpOptions {
-    max_iterations: 40,
-    damping: 0.5,
-    tolerance: 1e-4,
-    theta_cutoff: -9.0,
-};
-
-/// Rounds of the one-to-one refinement of the fit (see [`model::fit_from_shares`]).
-pub const ONE_TO_ONE_ROUNDS: usize = 3;
-
-/// Further rounds that refit each stratum of pass sets (see [`model::Strata`]).
-pub const STRATA_ROUNDS: usize = 2;
-
-/// Mean link probability of the pairs of each pattern, in the order of `counts`.
-fn pattern_shares(comparison: &Comparison, counts: &PatternCounts, p: &[f64]) -> Vec<f64> {
-    let mut sum: HashMap<u64, f64> = HashMap::new();
-    for (i, &code) in comparison.codes.iter().enumerate() {
-        *sum.entry(code).or_default() += p[i];
-    }
-    counts
-        .patterns
-        .iter()
-        .zip(&counts.counts)
-        .map(|(pat, &n)| sum.get(&comparison.encode(pat)).copied().unwrap_or(0.0) / n)
-        .collect()
-}
-
 /// Theta of every pair of another candidate set, with this run's pooled laws and
 /// value-frequency tables and a one-to-one link prior fitted on that set's graph (as many
 /// steps as the refinement's pooled rounds, from this run's pooled prior); also that prior
@@ -720,67 +470,6 @@ fn pooled_weights(prep: &Prepared, cands: &Candidates) -> (Vec<f64>, Vec<f64>) {
         &prep.frequency,
         None,
     )
-}
-
-/// Per pair: the weight (sum of per-field log-likelihood ratios, value-frequency adjusted) and
-/// theta = weight + the prior log odds, from the pair's stratum fit when `strata` is given. The
-/// prior log odds are `link_log_odds` (one per stratum, or one pooled value; see
-/// [`confidence::link_prior_step`]) when given, else ln(p / (1 - p)) of the fit.
-pub fn pair_weights(
-    records: &Records,
-    cands: &Candidates,
-    comparison: &Comparison,
-    fit: &Fit,
-    strata: Option<&Strata>,
-    frequency: &[Option<ValueFrequency>],
-    link_log_odds: Option<&[f64]>,
-) -> (Vec<f64>, Vec<f64>) {
-    use rayon::prelude::*;
-    let fits: Vec<&Fit> = match strata {
-        Some(s) => s.fits.iter().collect(),
-        None => vec![fit],
-    };
-    let stratum = |i: usize| strata.map_or(0, |s| s.stratum_of(i));
-    let mut by_code: HashMap<(usize, u64), f64> = HashMap::new();
-    for (i, &code) in comparison.codes.iter().enumerate() {
-        let g = stratum(i);
-        by_code
-            .entry((g, code))
-            .or_insert_with(|| fits[g].pattern_weight(&comparison.levels_of(code)));
-    }
-    let prior: Vec<f64> = match link_log_odds {
-        Some(l) => l.to_vec(),
-        None => fits
-            .iter()
-            .map(|f| {
-                if f.p > 0.0 && f.p < 1.0 {
-                    f.prior_log_odds()
-                } else {
-                    0.0
-                }
-            })
-            .collect(),
-    };
-    let (weight, theta): (Vec<f64>, Vec<f64>) = (0..cands.len())
-        .into_par_iter()
-        .map(|i| {
-            let code = comparison.codes[i];
-            let g = stratum(i);
-            let mut w = by_code[&(g, code)];
-            for (k, vf) in frequency.iter().enumerate() {
-                if let Some(vf) = vf {
-                    if comparison.level(code, k) == 0 {
-                        let v = records.fields[k].left[cands.left[i] as usize];
-                        if v != MISSING {
-                            w += vf.adjustment[v as usize];
-                        }
-                    }
-                }
-            }
-            (w, w + prior[g])
-        })
-        .unzip();
-    (weight, theta)
 }
 
 /// False candidates per record: its candidates minus its expected true pair (the pairwise

@@ -32,9 +32,10 @@
 
 use crate::block::{self, Candidates, Pass};
 use crate::compare::{self, Comparison, MISSING_LEVEL};
+use crate::fit::pair_weights;
 use crate::matching;
 use crate::model;
-use crate::pipeline::{pair_weights, score_one_to_one, Prepared};
+use crate::pipeline::{score_one_to_one, Prepared};
 use crate::reliability::confidence::{self, BpOptions};
 use crate::reliability::forecast::{self, ForecastOptions};
 use crate::rng::Rng;

@@ -489,7 +489,7 @@ pub fn use_truth_laws(prep: &mut Prepared, truth: &HashSet<(u32, u32)>) {
     };
     let mut theta = Vec::new();
     for _ in 0..6 {
-        let (_, t) = pipeline::pair_weights(
+        let (_, t) = dovetail::fit::pair_weights(
             &prep.records,
             &prep.cands,
             &prep.comparison,
@@ -516,7 +516,7 @@ pub fn use_truth_laws(prep: &mut Prepared, truth: &HashSet<(u32, u32)>) {
             &rough,
         );
     }
-    let (w, t) = pipeline::pair_weights(
+    let (w, t) = dovetail::fit::pair_weights(
         &prep.records,
         &prep.cands,
         &prep.comparison,
