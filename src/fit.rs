@@ -21,8 +21,8 @@ use crate::error::{Error, Result};
 use crate::io;
 use crate::model::check::ModelCheck;
 use crate::model::{self, EmOptions, Fit, Strata, ValueFrequency};
+use crate::posterior::{self as confidence, BpOptions};
 use crate::records::{Records, MISSING};
-use crate::reliability::confidence::{self, BpOptions};
 use std::collections::HashMap;
 
 /// What the fit stage gives the stages after it.

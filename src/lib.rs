@@ -3,8 +3,8 @@
 //!
 //! The stages, in data-flow order (see DEVELOPERS.md):
 //! [`io`] reads tables → [`records`] cleans and interns values → [`block`] builds candidate
-//! pairs → [`compare`] gives agreement patterns → [`model`] fits m, u and p by EM →
-//! [`matching`] finds the optimum one-to-one linkage → [`reliability`] assesses feasibility and
+//! pairs → [`compare`] gives agreement patterns → [`fit`] fits m, u and p ([`model`]: EM and
+//! the model check; [`posterior`]: the one-to-one posterior) → [`matching`] finds the optimum one-to-one linkage → [`reliability`] assesses feasibility and
 //! scores confidence → [`report`] writes outputs. [`pipeline`] runs them in order; the binary
 //! only parses arguments and prints.
 
@@ -18,6 +18,7 @@ pub mod io;
 pub mod matching;
 pub mod model;
 pub mod pipeline;
+pub mod posterior;
 pub mod records;
 pub mod reliability;
 pub mod report;

@@ -36,7 +36,7 @@ use crate::fit::pair_weights;
 use crate::matching;
 use crate::model;
 use crate::pipeline::{score_one_to_one, Prepared};
-use crate::reliability::confidence::{self, BpOptions};
+use crate::posterior::{self as confidence, BpOptions};
 use crate::reliability::forecast::{self, ForecastOptions};
 use crate::rng::Rng;
 use serde::Serialize;

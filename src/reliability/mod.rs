@@ -6,7 +6,8 @@
 //! threshold 1, a bootstrap forecast of the mismatch rate and a verdict; and per-pair
 //! confidences under the one-to-one constraint ([`confidence`]). Never reads or writes files.
 
-pub mod confidence;
+/// The one-to-one posterior, kept under its old name for the stages that score confidence.
+pub use crate::posterior as confidence;
 pub mod forecast;
 pub mod separation;
 

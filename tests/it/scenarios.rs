@@ -12,7 +12,7 @@ use dovetail::config::Config;
 use dovetail::matching::max_weight_matching;
 use dovetail::model::{self, Fit};
 use dovetail::pipeline::{self, Prepared, Silent};
-use dovetail::reliability::confidence::{self, BpOptions};
+use dovetail::posterior::{self as confidence, BpOptions};
 use dovetail::reliability::Verdict;
 use dovetail::report;
 use dovetail::synth::{generate_scenario, Scenario, SynthOptions};

@@ -1,4 +1,7 @@
-//! Per-link confidence under the one-to-one constraint.
+//! The one-to-one posterior: per-pair marginals under the constraint that each record has at
+//! most one partner (per-link confidence), and the one-to-one prior of a link. It sits below
+//! the fit stage (whose refinement and link prior use it) and the confidence step of the
+//! link stage, so neither reaches sideways into the other.
 //!
 //! The posterior over one-to-one linkages is proportional to prod_{(a,b) in M} exp(theta_ab),
 //! theta being the pair's weight plus the prior log odds of a link; the confidence of a link is
