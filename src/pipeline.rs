@@ -584,17 +584,7 @@ fn apply_check(
     use crate::model::check::Signature;
     use crate::reliability::Verdict;
     let names: Vec<&str> = prep.config.field.iter().map(|f| f.name.as_str()).collect();
-    let found_by = |s: usize| -> String {
-        let mask = prep.strata.as_ref().map_or(u16::MAX, |st| st.masks[s]);
-        let passes: Vec<&str> = prep
-            .pass_stats
-            .iter()
-            .enumerate()
-            .filter(|(j, _)| mask & (1 << j) != 0)
-            .map(|(_, p)| p.name.as_str())
-            .collect();
-        passes.join(" + ")
-    };
+    let found_by = |s: usize| prep.found_by(s).join(" + ");
     for sig in &check.signatures {
         a.reasons.push(match sig {
             Signature::Unidentified { stratum, varying } => format!(
@@ -804,6 +794,32 @@ pub fn link(prep: &mut Prepared, progress: &dyn Progress) -> Linkage {
         recall,
         completeness,
         recall_all,
+    }
+}
+
+impl Prepared {
+    /// The names of the passes that found the pairs of stratum `s` (every pass without
+    /// strata).
+    pub fn found_by(&self, s: usize) -> Vec<String> {
+        let mask = self.strata.as_ref().map_or(u16::MAX, |st| st.masks[s]);
+        self.pass_stats
+            .iter()
+            .enumerate()
+            .filter(|(j, _)| mask & (1 << j) != 0)
+            .map(|(_, p)| p.name.clone())
+            .collect()
+    }
+
+    /// The name of level `l` of field `k` ("missing" for a missing value).
+    pub fn level_name(&self, k: usize, l: u8) -> String {
+        if l == MISSING_LEVEL {
+            return "missing".to_string();
+        }
+        self.comparison.comparators[k]
+            .level_names()
+            .get(l as usize)
+            .cloned()
+            .unwrap_or_default()
     }
 }
 

@@ -36,20 +36,12 @@ use crate::fit::pair_weights;
 use crate::matching;
 use crate::model;
 use crate::pipeline::{score_one_to_one, Prepared};
-use crate::posterior::{self as confidence, BpOptions};
+use crate::posterior as confidence;
 use crate::reliability::forecast::{self, ForecastOptions};
 use crate::rng::Rng;
 use serde::Serialize;
 use std::collections::HashMap;
 use std::time::Instant;
-
-/// Belief propagation for the right records' claims in the reference (rough is enough).
-const CLAIM_BP: BpOptions = BpOptions {
-    max_iterations: 40,
-    damping: 0.5,
-    tolerance: 1e-4,
-    theta_cutoff: -9.0,
-};
 
 /// Most pairs compared for the reference sample.
 pub const MAX_REFERENCE_PAIRS: usize = 5_000_000;
@@ -137,7 +129,7 @@ fn reference(prep: &Prepared, opts: &TuneOptions, max_pairs: usize) -> Reference
         &prep.cands.left,
         &prep.cands.right,
         &prep.theta,
-        &CLAIM_BP,
+        &crate::fit::REFINEMENT_BP,
     );
     let mut claim = vec![0.0f64; nr];
     for (&b, &p) in prep.cands.right.iter().zip(&marg.p) {

@@ -436,40 +436,39 @@ pub fn page(prep: &Prepared, l: &Linkage, review: &[usize], tune: Option<&[TuneR
     );
     let unlinked_l = prep.records.n_left() - l.links.len();
     let unlinked_r = prep.records.n_right() - l.links.len();
-    let est_precision = l.precision.map_or("n/a".to_string(), |e| {
-        format!(
-            "{:.1}% ({:.1}–{:.1}%)",
-            100.0 * e.value,
-            100.0 * e.interval[0],
-            100.0 * e.interval[1]
-        )
-    });
-    let est_recall_all = l.recall_all.map_or("n/a".to_string(), |e| {
-        format!(
-            "{:.1}% ({:.1}–{:.1}%)",
-            100.0 * e.value,
-            100.0 * e.interval[0],
-            100.0 * e.interval[1]
-        )
-    });
+    // A tile's value, and its label with the 95% interval.
+    let with_interval = |e: Option<crate::pipeline::Estimate>, label: &str| match e {
+        Some(e) => (
+            format!("{:.1}%", 100.0 * e.value),
+            format!(
+                "{label} ({:.1}–{:.1}%)",
+                100.0 * e.interval[0],
+                100.0 * e.interval[1]
+            ),
+        ),
+        None => ("n/a".to_string(), label.to_string()),
+    };
+    let (est_precision, precision_label) = with_interval(l.precision, "estimated precision");
+    let (est_recall_all, recall_all_label) =
+        with_interval(l.recall_all, "estimated recall, all true pairs");
     let _ = write!(
         h,
         "<section><h2>The run in numbers</h2><div class=\"tiles\">"
     );
     for (label, value) in [
-        ("candidate pairs", prep.cands.len().to_string()),
-        ("links written", l.links.len().to_string()),
-        ("left unlinked", unlinked_l.to_string()),
-        ("right unlinked", unlinked_r.to_string()),
-        ("for review", review.len().to_string()),
-        ("estimated precision", est_precision),
-        ("estimated recall, all true pairs", est_recall_all),
+        ("candidate pairs".to_string(), prep.cands.len().to_string()),
+        ("links written".to_string(), l.links.len().to_string()),
+        ("left unlinked".to_string(), unlinked_l.to_string()),
+        ("right unlinked".to_string(), unlinked_r.to_string()),
+        ("for review".to_string(), review.len().to_string()),
+        (precision_label, est_precision),
+        (recall_all_label, est_recall_all),
     ] {
         let _ = write!(
             h,
             "<div class=\"tile\"><b>{}</b>{}</div>",
             escape(&value),
-            label
+            escape(&label)
         );
     }
     let _ = write!(h, "</div></section>");
@@ -510,10 +509,25 @@ pub fn page(prep: &Prepared, l: &Linkage, review: &[usize], tune: Option<&[TuneR
     let names: Vec<String> = a.fields.iter().map(|f| f.name.clone()).collect();
     let nats: Vec<f64> = a.fields.iter().map(|f| f.nats).collect();
     h.push_str(&separation_chart(&names, &nats, a.nats_needed));
+    let _ = write!(h, "<table><tr><th>field</th><th>B<sub>k</sub></th><th>nats</th><th>missing, left</th><th>missing, right</th><th>note</th></tr>");
+    for (k, f) in a.fields.iter().enumerate() {
+        let fv = &prep.records.fields[k];
+        let _ = write!(
+            h,
+            "<tr><td>{}</td><td class=\"num\">{:.4}</td><td class=\"num\">{:.2}</td><td class=\"num\">{:.1}%</td><td class=\"num\">{:.1}%</td><td>{}</td></tr>",
+            escape(&f.name),
+            f.bhattacharyya,
+            f.nats,
+            fv.left_missing_rate() * 100.0,
+            fv.right_missing_rate() * 100.0,
+            if f.adds_nothing { "adds nothing" } else { "" }
+        );
+    }
+    let _ = write!(h, "</table></section>");
     if let Some(c) = &prep.check {
         let _ = write!(
             h,
-            "<h3>Does the model fit?</h3><p>Every number on this page rests on a statistical model of the candidate pairs: two kinds of pair, the same person or not, with fields that agree independently within each kind. The check compares how many candidate pairs show each pattern of agreement with how many the fitted model expects. Among the {:.0} pairs that could be linked, {:.1}% are not where the model expects them{}.</p>",
+            "<section><h2>Does the model fit?</h2><p>Every number on this page rests on a statistical model of the candidate pairs: two kinds of pair, the same person or not, with fields that agree independently within each kind. The check compares how many candidate pairs show each pattern of agreement with how many the fitted model expects. Among the {:.0} pairs that could be linked, {:.1}% are not where the model expects them{}.</p>",
             c.pairs_matter,
             100.0 * c.misfit_matters,
             if c.flagged() {
@@ -530,17 +544,7 @@ pub fn page(prep: &Prepared, l: &Linkage, review: &[usize], tune: Option<&[TuneR
                     .iter()
                     .enumerate()
                     .map(|(k, &l)| {
-                        let name = &prep.config.field[k].name;
-                        if l == crate::compare::MISSING_LEVEL {
-                            format!("{name}: missing")
-                        } else {
-                            let level = prep.comparison.comparators[k]
-                                .level_names()
-                                .get(l as usize)
-                                .cloned()
-                                .unwrap_or_default();
-                            format!("{name}: {level}")
-                        }
+                        format!("{}: {}", prep.config.field[k].name, prep.level_name(k, l))
                     })
                     .collect();
                 let _ = write!(
@@ -553,22 +557,8 @@ pub fn page(prep: &Prepared, l: &Linkage, review: &[usize], tune: Option<&[TuneR
             }
             let _ = write!(h, "</table>");
         }
+        let _ = write!(h, "</section>");
     }
-    let _ = write!(h, "<table><tr><th>field</th><th>B<sub>k</sub></th><th>nats</th><th>missing, left</th><th>missing, right</th><th>note</th></tr>");
-    for (k, f) in a.fields.iter().enumerate() {
-        let fv = &prep.records.fields[k];
-        let _ = write!(
-            h,
-            "<tr><td>{}</td><td class=\"num\">{:.4}</td><td class=\"num\">{:.2}</td><td class=\"num\">{:.1}%</td><td class=\"num\">{:.1}%</td><td>{}</td></tr>",
-            escape(&f.name),
-            f.bhattacharyya,
-            f.nats,
-            fv.left_missing_rate() * 100.0,
-            fv.right_missing_rate() * 100.0,
-            if f.adds_nothing { "adds nothing" } else { "" }
-        );
-    }
-    let _ = write!(h, "</table></section>");
 
     let _ = write!(h, "<section><h2>Weights of the candidate pairs</h2><p>Bars: the candidate pairs by weight. Lines: the counts the fitted laws expect, true pairs (m) and false pairs (u). Two well separated humps mean the fields tell the classes apart.</p>");
     h.push_str(&weight_chart(prep));

@@ -255,15 +255,6 @@ pub struct PatternSummary {
 
 fn check_summary(prep: &Prepared, a: &Assessment) -> Option<CheckSummary> {
     let c = prep.check.as_ref()?;
-    let found_by = |s: usize| -> Vec<String> {
-        let mask = prep.strata.as_ref().map_or(u16::MAX, |st| st.masks[s]);
-        prep.pass_stats
-            .iter()
-            .enumerate()
-            .filter(|(j, _)| mask & (1 << j) != 0)
-            .map(|(_, p)| p.name.clone())
-            .collect()
-    };
     Some(CheckSummary {
         flagged: c.flagged(),
         deviance: c.deviance,
@@ -275,22 +266,12 @@ fn check_summary(prep: &Prepared, a: &Assessment) -> Option<CheckSummary> {
             .worst
             .iter()
             .map(|w| PatternSummary {
-                found_by: found_by(w.stratum),
+                found_by: prep.found_by(w.stratum),
                 levels: w
                     .levels
                     .iter()
                     .enumerate()
-                    .map(|(k, &l)| {
-                        if l == crate::compare::MISSING_LEVEL {
-                            "missing".to_string()
-                        } else {
-                            prep.comparison.comparators[k]
-                                .level_names()
-                                .get(l as usize)
-                                .cloned()
-                                .unwrap_or_default()
-                        }
-                    })
+                    .map(|(k, &l)| prep.level_name(k, l))
                     .collect(),
                 observed: w.observed,
                 expected: w.expected,
@@ -375,14 +356,9 @@ fn per_pass_fits(prep: &Prepared) -> Vec<PassSetFit> {
         .zip(&strata.fits)
         .zip(pairs)
         .zip(&prep.link_log_odds)
-        .map(|(((&mask, fit), pairs), &link_log_odds)| PassSetFit {
-            found_by: prep
-                .pass_stats
-                .iter()
-                .enumerate()
-                .filter(|(k, _)| mask & (1 << k) != 0)
-                .map(|(_, s)| s.name.clone())
-                .collect(),
+        .enumerate()
+        .map(|(g, (((_, fit), pairs), &link_log_odds))| PassSetFit {
+            found_by: prep.found_by(g),
             pairs,
             p: fit.p,
             link_log_odds,
