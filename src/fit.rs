@@ -10,9 +10,9 @@
 //! refinement, each taking link probabilities from a loose BP on the candidate graph
 //! ([`confidence::marginals`]), m from the pairs the other fields identify
 //! ([`model::leave_one_out_m`]), u and p by the M-step ([`model::fit_from_shares`]), and a step
-//! of the link prior ([`confidence::link_prior_step`]); with two or more passes, further rounds
-//! refit each set of passes ([`model::Strata`]); value-frequency tables from the final link
-//! probabilities. Pattern counts stay the sufficient statistic of every M-step.
+//! of the link prior ([`confidence::LinkPrior`], its messages kept from round to round); with
+//! two or more passes, further rounds refit each set of passes ([`model::Strata`]);
+//! value-frequency tables from the final link probabilities. Pattern counts stay the sufficient statistic of every M-step.
 
 use crate::block::{Candidates, Pass};
 use crate::compare::{self, Comparison, PatternCounts};
@@ -20,7 +20,7 @@ use crate::config::Config;
 use crate::error::{Error, Result};
 use crate::io;
 use crate::model::check::ModelCheck;
-use crate::model::{self, EmOptions, Fit, Strata, ValueFrequency};
+use crate::model::{self, EmOptions, Fit, PairPatterns, Strata, ValueFrequency};
 use crate::posterior::{self as confidence, BpOptions};
 use crate::records::{Records, MISSING};
 use std::collections::HashMap;
@@ -45,6 +45,8 @@ pub struct Fitted {
     pub weight: Vec<f64>,
     /// Per pair: weight plus the prior log odds of a link.
     pub theta: Vec<f64>,
+    /// Per pair: its pattern's index in the pattern counts.
+    pub patterns: PairPatterns,
 }
 
 /// Fits the laws and weighs every candidate pair (see the module doc); warnings in plain words
@@ -58,6 +60,7 @@ pub fn fit(
     warnings: &mut Vec<String>,
 ) -> Result<Fitted> {
     let known = known_laws(config, records, comparison, counts)?;
+    let pp = PairPatterns::new(comparison, counts);
     let fit = if cands.is_empty() {
         model::null_fit(&counts.levels)
     } else {
@@ -88,7 +91,7 @@ pub fn fit(
     // The fit and its one-to-one refinement use field-level weights; value-frequency tables
     // are then estimated from the refined link probabilities of the candidate pairs.
     let no_frequency: Vec<Option<ValueFrequency>> = vec![None; records.fields.len()];
-    let (_, mut theta) = pair_weights(records, cands, comparison, &fit, None, &no_frequency, None);
+    let (_, mut theta) = pair_weights_indexed(records, cands, &pp, &fit, None, &no_frequency, None);
     let mut strata = Some(Strata::new(&cands.passes))
         .filter(|s| config.model.per_pass && s.masks.len() > 1 && !known.any_fixed());
     let plain_fit = fit.clone();
@@ -106,26 +109,28 @@ pub fn fit(
         // for its false law and never recover).
         let rounds = ONE_TO_ONE_ROUNDS + if strata.is_some() { STRATA_ROUNDS } else { 0 };
         let pooled_group = vec![0u32; cands.len()];
+        let mut prior =
+            confidence::LinkPrior::new(records.n_left(), &cands.left, &cands.right, &pooled_group);
         for round in 0..rounds {
             let marg =
                 confidence::marginals(records.n_left(), &cands.left, &cands.right, &theta, &rough);
-            gamma = pattern_shares(comparison, counts, &marg.p);
+            gamma = pattern_shares(&pp, counts, &marg.p);
             let stratified = round >= ONE_TO_ONE_ROUNDS;
             // m by leave-one-field-out from the link probabilities of this round (see
             // model::leave_one_out_m), u, p and the missing shares by the M-step.
-            let pooled_m = model::leave_one_out_m(comparison, &[&fit], |_| 0, &marg.p);
+            let pooled_m = model::leave_one_out_m(&pp, &[&fit], |_| 0, &marg.p);
             let strata_m = strata
                 .as_ref()
                 .filter(|s| stratified && !s.fits.is_empty())
                 .map(|s| {
                     let fits: Vec<&Fit> = s.fits.iter().collect();
-                    model::leave_one_out_m(comparison, &fits, |i| s.stratum_of(i), &marg.p)
+                    model::leave_one_out_m(&pp, &fits, |i| s.stratum_of(i), &marg.p)
                 });
             fit = model::fit_from_shares(counts, &gamma, &fit, &known);
             fit.m = pooled_m.into_iter().next().unwrap_or_default();
             known.apply_m(&mut fit.m);
             if let (Some(s), true) = (strata.as_mut(), stratified) {
-                s.refit(comparison, &marg.p, &fit);
+                s.refit(&pp, &marg.p, &fit);
                 if let Some(ms) = strata_m {
                     for (f, m) in s.fits.iter_mut().zip(ms) {
                         f.m = m;
@@ -138,6 +143,9 @@ pub fn fit(
                 None => (&pooled_group, vec![&fit]),
             };
             if link_log_odds.len() != fits.len() {
+                if !link_log_odds.is_empty() {
+                    prior.regroup(group);
+                }
                 // The pooled rounds' prior, kept when the strata take over.
                 pooled_link_log_odds = link_log_odds.first().copied();
                 // Each stratum starts from its share's log odds, moved as far as the pooled
@@ -145,19 +153,11 @@ pub fn fit(
                 let shift = pooled_link_log_odds.map_or(0.0, |l| l - fit.prior_log_odds());
                 link_log_odds = fits.iter().map(|f| f.prior_log_odds() + shift).collect();
             }
-            confidence::link_prior_step(
-                records.n_left(),
-                &cands.left,
-                &cands.right,
-                group,
-                &mut link_log_odds,
-                &marg.p,
-                &rough,
-            );
-            (_, theta) = pair_weights(
+            prior.step(&mut link_log_odds, &marg.p, &rough);
+            (_, theta) = pair_weights_indexed(
                 records,
                 cands,
-                comparison,
+                &pp,
                 &fit,
                 st,
                 &no_frequency,
@@ -189,16 +189,16 @@ pub fn fit(
         .map(|(k, fv)| {
             fv.spec.frequency.then(|| {
                 let agreeing = (0..cands.len())
-                    .filter(|&i| comparison.level(comparison.codes[i], k) == 0)
+                    .filter(|&i| pp.levels_of(i)[k] == 0)
                     .map(|i| (fv.left[cands.left[i] as usize], link_prob[i]));
                 model::value_frequency_on_candidates(&fv.left_counts, &fv.right_counts, agreeing)
             })
         })
         .collect();
-    let (weight, theta) = pair_weights(
+    let (weight, theta) = pair_weights_indexed(
         records,
         cands,
-        comparison,
+        &pp,
         &fit,
         strata.as_ref(),
         &frequency,
@@ -214,6 +214,7 @@ pub fn fit(
         frequency,
         weight,
         theta,
+        patterns: pp,
     })
 }
 
@@ -221,7 +222,7 @@ pub fn fit(
 pub fn check(
     records: &Records,
     cands: &Candidates,
-    comparison: &Comparison,
+    pp: &PairPatterns,
     passes: &[Pass],
     fit: &Fit,
     strata: Option<&Strata>,
@@ -242,7 +243,7 @@ pub fn check(
             p.parts.iter().for_each(|k| free[k.field] = false);
         }
         model::check::check(
-            comparison,
+            pp,
             &model::check::CheckStrata { fits, prior, free },
             |i| strata.map_or(0, |s| s.stratum_of(i)),
             CHECK_MIN_TRUE,
@@ -338,27 +339,39 @@ pub const ONE_TO_ONE_ROUNDS: usize = 3;
 pub const STRATA_ROUNDS: usize = 2;
 
 /// Mean link probability of the pairs of each pattern, in the order of `counts`.
-fn pattern_shares(comparison: &Comparison, counts: &PatternCounts, p: &[f64]) -> Vec<f64> {
-    let mut sum: HashMap<u64, f64> = HashMap::new();
-    for (i, &code) in comparison.codes.iter().enumerate() {
-        *sum.entry(code).or_default() += p[i];
+fn pattern_shares(pp: &PairPatterns, counts: &PatternCounts, p: &[f64]) -> Vec<f64> {
+    let mut sum = vec![0.0f64; counts.patterns.len()];
+    for (&j, &q) in pp.of_pair.iter().zip(p) {
+        sum[j as usize] += q;
     }
-    counts
-        .patterns
-        .iter()
+    sum.iter()
         .zip(&counts.counts)
-        .map(|(pat, &n)| sum.get(&comparison.encode(pat)).copied().unwrap_or(0.0) / n)
+        .map(|(s, &n)| s / n)
         .collect()
 }
 
 /// Per pair: the weight (sum of per-field log-likelihood ratios, value-frequency adjusted) and
 /// theta = weight + the prior log odds, from the pair's stratum fit when `strata` is given. The
 /// prior log odds are `link_log_odds` (one per stratum, or one pooled value; see
-/// [`confidence::link_prior_step`]) when given, else ln(p / (1 - p)) of the fit.
+/// [`confidence::LinkPrior::step`]) when given, else ln(p / (1 - p)) of the fit.
 pub fn pair_weights(
     records: &Records,
     cands: &Candidates,
     comparison: &Comparison,
+    fit: &Fit,
+    strata: Option<&Strata>,
+    frequency: &[Option<ValueFrequency>],
+    link_log_odds: Option<&[f64]>,
+) -> (Vec<f64>, Vec<f64>) {
+    let pp = PairPatterns::new(comparison, &comparison.pattern_counts());
+    pair_weights_indexed(records, cands, &pp, fit, strata, frequency, link_log_odds)
+}
+
+/// [`pair_weights`] of pairs whose patterns are indexed already.
+pub fn pair_weights_indexed(
+    records: &Records,
+    cands: &Candidates,
+    pp: &PairPatterns,
     fit: &Fit,
     strata: Option<&Strata>,
     frequency: &[Option<ValueFrequency>],
@@ -370,13 +383,12 @@ pub fn pair_weights(
         None => vec![fit],
     };
     let stratum = |i: usize| strata.map_or(0, |s| s.stratum_of(i));
-    let mut by_code: HashMap<(usize, u64), f64> = HashMap::new();
-    for (i, &code) in comparison.codes.iter().enumerate() {
-        let g = stratum(i);
-        by_code
-            .entry((g, code))
-            .or_insert_with(|| fits[g].pattern_weight(&comparison.levels_of(code)));
-    }
+    // The weight of every (stratum, pattern).
+    let np = pp.patterns.len();
+    let table: Vec<f64> = fits
+        .iter()
+        .flat_map(|f| pp.patterns.iter().map(|pat| f.pattern_weight(pat)))
+        .collect();
     let prior: Vec<f64> = match link_log_odds {
         Some(l) => l.to_vec(),
         None => fits
@@ -390,15 +402,18 @@ pub fn pair_weights(
             })
             .collect(),
     };
+    let adjusted: Vec<usize> = (0..frequency.len())
+        .filter(|&k| frequency[k].is_some())
+        .collect();
     let (weight, theta): (Vec<f64>, Vec<f64>) = (0..cands.len())
         .into_par_iter()
         .map(|i| {
-            let code = comparison.codes[i];
+            let j = pp.of_pair[i] as usize;
             let g = stratum(i);
-            let mut w = by_code[&(g, code)];
-            for (k, vf) in frequency.iter().enumerate() {
-                if let Some(vf) = vf {
-                    if comparison.level(code, k) == 0 {
+            let mut w = table[g * np + j];
+            for &k in &adjusted {
+                if let Some(vf) = &frequency[k] {
+                    if pp.patterns[j][k] == 0 {
                         let v = records.fields[k].left[cands.left[i] as usize];
                         if v != MISSING {
                             w += vf.adjustment[v as usize];

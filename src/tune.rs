@@ -31,16 +31,18 @@
 //! 91%.
 
 use crate::block::{self, Candidates, Pass};
-use crate::compare::{self, Comparison, MISSING_LEVEL};
-use crate::fit::pair_weights;
+use crate::compare::{self, Comparator, DATE_LEVELS, MISSING_LEVEL};
+use crate::config::Method;
 use crate::matching;
 use crate::model;
 use crate::pipeline::{score_one_to_one, Prepared};
 use crate::posterior as confidence;
+use crate::records::MISSING;
 use crate::reliability::forecast::{self, ForecastOptions};
 use crate::rng::Rng;
+use crate::text::Date;
+use rayon::prelude::*;
 use serde::Serialize;
-use std::collections::HashMap;
 use std::time::Instant;
 
 /// Most pairs compared for the reference sample.
@@ -88,6 +90,34 @@ struct Reference {
 }
 
 fn reference(prep: &Prepared, opts: &TuneOptions, max_pairs: usize) -> Reference {
+    reference_with(prep, opts, max_pairs, &run_claims(prep))
+}
+
+/// The run's one-to-one link probabilities of its candidate pairs, by the refinement's BP.
+fn run_claims(prep: &Prepared) -> Vec<f64> {
+    confidence::marginals(
+        prep.records.n_left(),
+        &prep.cands.left,
+        &prep.cands.right,
+        &prep.theta,
+        &crate::fit::REFINEMENT_BP,
+    )
+    .p
+}
+
+/// The reference, given the run's one-to-one link probabilities of its candidate pairs
+/// (`claims`, in candidate order).
+///
+/// A pair's levels depend only on the two records' dictionary entries, so each sampled record
+/// is compared once with each distinct value the right table holds, and each right record
+/// reads its levels from that table: the same levels, weights and level counts as comparing
+/// every pair, at the cost of the distinct values instead of the right records.
+fn reference_with(
+    prep: &Prepared,
+    opts: &TuneOptions,
+    max_pairs: usize,
+    claims: &[f64],
+) -> Reference {
     let (nl, nr) = (prep.records.n_left(), prep.records.n_right());
     let cap = (max_pairs / nr.max(1)).max(1);
     let size = opts.sample.min(cap).min(nl);
@@ -95,73 +125,125 @@ fn reference(prep: &Prepared, opts: &TuneOptions, max_pairs: usize) -> Reference
     Rng::new(opts.seed ^ 0x7E57).shuffle(&mut order);
     let mut sampled: Vec<u32> = order[..size].to_vec();
     sampled.sort_unstable();
-    let cands = Candidates {
-        left: sampled
-            .iter()
-            .flat_map(|&a| std::iter::repeat_n(a, nr))
-            .collect(),
-        right: (0..sampled.len()).flat_map(|_| 0..nr as u32).collect(),
-        passes: vec![0; sampled.len() * nr],
-    };
+    let fields = &prep.records.fields;
+    let comparators: Vec<Comparator> = fields.iter().map(Comparator::for_field).collect();
+    // levels[k][f][v]: the level of sampled record k against dictionary value v of field f
+    // (values no right record holds are skipped).
+    let levels: Vec<Vec<Vec<u8>>> = sampled
+        .par_iter()
+        .map(|&a| {
+            fields
+                .iter()
+                .zip(&comparators)
+                .map(|(fv, c)| {
+                    let x = fv.left[a as usize];
+                    (0..fv.dict.len())
+                        .map(|v| {
+                            if fv.right_counts[v] == 0 {
+                                MISSING_LEVEL
+                            } else if c.method == Method::Date && x != MISSING {
+                                quick_date_level(fv.dates[x as usize], fv.dates[v])
+                            } else {
+                                c.level(fv, x, v as u32)
+                            }
+                        })
+                        .collect()
+                })
+                .collect()
+        })
+        .collect();
     // The weights with the u-law of random pairs: the reference's pairs are nearly all false
     // (at most one true pair per sampled record among nr), so each field's level shares among
     // them are the u-probabilities of two records drawn at random. The fitted u-law describes
     // the false candidates of blocking, which agree far more often (on the blocking keys
     // above all) and would undervalue agreement here.
-    let comparison = compare::compare(&prep.records, &cands);
+    let mut counts: Vec<Vec<f64>> = comparators.iter().map(|c| vec![0.0; c.levels()]).collect();
+    for lv in &levels {
+        for (f, fv) in fields.iter().enumerate() {
+            // Whole counts, so the order of the sums cannot change a bit of the result.
+            for (v, &l) in lv[f].iter().enumerate() {
+                if l != MISSING_LEVEL {
+                    counts[f][l as usize] += fv.right_counts[v] as f64;
+                }
+            }
+        }
+    }
     let mut fit = prep.fit.clone();
-    fit.u = random_pair_u(&comparison);
-    let (mut weight, _) = pair_weights(
-        &prep.records,
-        &cands,
-        &comparison,
-        &fit,
-        None,
-        &prep.frequency,
-        None,
-    );
+    fit.u = random_pair_u(counts);
+    let level_weight: Vec<Vec<f64>> = fit
+        .m
+        .iter()
+        .zip(&fit.u)
+        .map(|(m, u)| m.iter().zip(u).map(|(a, b)| (a / b).ln()).collect())
+        .collect();
+    let frequency = &prep.frequency;
+    let mut weight: Vec<Vec<f64>> = sampled
+        .par_iter()
+        .zip(&levels)
+        .map(|(&a, lv)| {
+            (0..nr)
+                .map(|b| {
+                    // The pattern's weight in field order, then the value-frequency terms, as
+                    // the run weighs its pairs.
+                    let mut w = 0.0;
+                    for (f, fv) in fields.iter().enumerate() {
+                        let y = fv.right[b];
+                        if y != MISSING {
+                            let l = lv[f][y as usize];
+                            if l != MISSING_LEVEL {
+                                w += level_weight[f][l as usize];
+                            }
+                        }
+                    }
+                    for (f, vf) in frequency.iter().enumerate() {
+                        if let Some(vf) = vf {
+                            let (x, y) = (fields[f].left[a as usize], fields[f].right[b]);
+                            if x != MISSING && y != MISSING && lv[f][y as usize] == 0 {
+                                w += vf.adjustment[x as usize];
+                            }
+                        }
+                    }
+                    w
+                })
+                .collect()
+        })
+        .collect();
     // One-to-one from the right side too: a right record is free for a sampled record only
     // when no other left record has it, and the run's confidences say how likely that is.
     // Without it, a record whose partner is missing takes a relative's right record (same
     // surname, address and phone) for its own even when that relative's own record holds it.
-    let marg = confidence::marginals(
-        nl,
-        &prep.cands.left,
-        &prep.cands.right,
-        &prep.theta,
-        &crate::fit::REFINEMENT_BP,
-    );
     let mut claim = vec![0.0f64; nr];
-    for (&b, &p) in prep.cands.right.iter().zip(&marg.p) {
+    for (&b, &p) in prep.cands.right.iter().zip(claims) {
         claim[b as usize] += p;
     }
     let free = |q: f64| (1.0 - q).max(1e-12).ln();
     let free_of_all: Vec<f64> = claim.iter().map(|&q| free(q)).collect();
     for (k, &a) in sampled.iter().enumerate() {
-        let w = &mut weight[k * nr..(k + 1) * nr];
+        let w = &mut weight[k];
         for (x, f) in w.iter_mut().zip(&free_of_all) {
             *x += f;
         }
         let lo = prep.cands.left.partition_point(|&x| x < a);
         let hi = prep.cands.left.partition_point(|&x| x <= a);
-        for i in lo..hi {
-            let b = prep.cands.right[i] as usize;
-            w[b] += free(claim[b] - marg.p[i]) - free_of_all[b];
+        for (&b, &c) in prep.cands.right[lo..hi].iter().zip(&claims[lo..hi]) {
+            let b = b as usize;
+            w[b] += free(claim[b] - c) - free_of_all[b];
         }
     }
     // Per sampled record: the log of its likelihood ratios' sum over all right records.
-    let log_sum: Vec<f64> = (0..sampled.len())
-        .map(|k| {
-            let w = &weight[k * nr..(k + 1) * nr];
+    let log_sum: Vec<f64> = weight
+        .iter()
+        .map(|w| {
             let hi = w.iter().copied().fold(f64::NEG_INFINITY, f64::max);
             hi + w.iter().map(|x| (x - hi).exp()).sum::<f64>().ln()
         })
         .collect();
     let has_partner = partner_share(&log_sum, nr);
     let offset = (has_partner / (1.0 - has_partner)).ln() - (nr as f64).ln();
-    let partners = (0..sampled.len())
-        .map(|k| {
-            let w = &weight[k * nr..(k + 1) * nr];
+    let partners = weight
+        .iter()
+        .enumerate()
+        .map(|(k, w)| {
             // The record's chance of having a partner at all, then each right record's share.
             let any = 1.0 / (1.0 + (-(log_sum[k] + offset)).exp());
             w.iter()
@@ -174,27 +256,22 @@ fn reference(prep: &Prepared, opts: &TuneOptions, max_pairs: usize) -> Reference
     Reference { sampled, partners }
 }
 
-/// Per field, the shares of its observed levels among the pairs of `comparison`, floored at
-/// [`model::FLOOR`] as the fit's laws are.
-fn random_pair_u(comparison: &Comparison) -> Vec<Vec<f64>> {
-    let mut counts: Vec<Vec<f64>> = comparison
-        .level_counts()
-        .iter()
-        .map(|&n| vec![0.0; n])
-        .collect();
-    let mut by_code: HashMap<u64, usize> = HashMap::new();
-    for &code in &comparison.codes {
-        *by_code.entry(code).or_default() += 1;
+/// [`compare::date_level`] without its digit comparison where it cannot matter: two dates of
+/// different years whose (month, day) differ too differ in two or more of the eight digits of
+/// YYYYMMDD (or one of them has no month or day), are not a day-month swap (which keeps the
+/// year) and are not of the same year, so they are "different". Nearly all of a reference's
+/// random pairs are such; the rest go to `date_level`.
+fn quick_date_level(a: Date, b: Date) -> u8 {
+    if a.year != b.year && (a.month, a.day) != (b.month, b.day) {
+        (DATE_LEVELS.len() - 1) as u8
+    } else {
+        compare::date_level(a, b)
     }
-    // Whole counts, so the order of the sums cannot change a bit of the result.
-    for (&code, &n) in &by_code {
-        let n = n as f64;
-        for (k, &l) in comparison.levels_of(code).iter().enumerate() {
-            if l != MISSING_LEVEL {
-                counts[k][l as usize] += n;
-            }
-        }
-    }
+}
+
+/// Per field, the shares of its observed levels among the reference's pairs (`counts`, whole
+/// pair counts per level), floored at [`model::FLOOR`] as the fit's laws are.
+fn random_pair_u(mut counts: Vec<Vec<f64>>) -> Vec<Vec<f64>> {
     for c in &mut counts {
         let total: f64 = c.iter().sum();
         let n = c.len() as f64;
@@ -279,7 +356,22 @@ pub fn completeness(
     max_pairs: usize,
     seed: u64,
 ) -> Option<Completeness> {
-    let reference = reference(
+    let marg = run_claims(prep);
+    completeness_given(prep, cands, &marg, sample, max_pairs, seed)
+}
+
+/// [`completeness`] given the run's one-to-one link probabilities of its candidate pairs
+/// (`claims`, in candidate order; the confidence stage's marginals, say), which it would
+/// otherwise compute by belief propagation over every candidate pair.
+pub fn completeness_given(
+    prep: &Prepared,
+    cands: &Candidates,
+    claims: &[f64],
+    sample: usize,
+    max_pairs: usize,
+    seed: u64,
+) -> Option<Completeness> {
+    let reference = reference_with(
         prep,
         &TuneOptions {
             sample,
@@ -287,13 +379,19 @@ pub fn completeness(
             replicates: 0,
         },
         max_pairs,
+        claims,
     );
+    ratio(&reference, cands)
+}
+
+/// The ratio estimator of completeness from a reference.
+fn ratio(reference: &Reference, cands: &Candidates) -> Option<Completeness> {
     let mass: Vec<f64> = reference
         .partners
         .iter()
         .map(|p| p.iter().map(|x| x.1).sum())
         .collect();
-    let kept = kept_per_record(&reference, cands);
+    let kept = kept_per_record(reference, cands);
     let n = mass.len() as f64;
     let total: f64 = mass.iter().sum();
     if total <= 0.0 || n < 2.0 {
@@ -417,4 +515,44 @@ pub fn table_text(rows: &[SchemeResult]) -> String {
         ));
     }
     t
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn quick_date_level_equals_date_level() {
+        // Oracle: `compare::date_level` itself on every pair of a grid of dates (years one
+        // digit apart or not, months and days swapped or equal, dates known to the year only).
+        let mut dates = Vec::new();
+        for year in [1979, 1980, 1981, 1990, 2080] {
+            dates.push(Date {
+                year,
+                month: None,
+                day: None,
+            });
+            for (m, d) in [(3, 7), (7, 3), (3, 8), (4, 7), (12, 12), (1, 1)] {
+                dates.push(Date {
+                    year,
+                    month: Some(m),
+                    day: Some(d),
+                });
+            }
+            dates.push(Date {
+                year,
+                month: Some(3),
+                day: None,
+            });
+        }
+        for &a in &dates {
+            for &b in &dates {
+                assert_eq!(
+                    quick_date_level(a, b),
+                    compare::date_level(a, b),
+                    "{a:?} {b:?}"
+                );
+            }
+        }
+    }
 }

@@ -1,7 +1,7 @@
 //! The model check: does the fitted two-class model describe the candidate pairs well enough
 //! for the numbers derived from it (confidences, precision, recall, forecast) to be trusted?
 //!
-//! In: the pairs' pattern codes, the set of passes (stratum) of each pair with its fit and
+//! In: the pairs' patterns, the set of passes (stratum) of each pair with its fit and
 //! prior log odds of a link. Out: a [`ModelCheck`]: observed against expected counts per
 //! agreement pattern (Pearson residuals and the deviance G^2; Agresti, Categorical Data
 //! Analysis, for the statistics), the share of the pairs that matter that the model cannot
@@ -13,8 +13,8 @@
 //! field is missing. The pairs that matter are those of patterns whose pairwise link
 //! probability sigma(w_g + prior_s) is at least [`MATTERS`]: elsewhere a misfit moves no link.
 
-use super::Fit;
-use crate::compare::{Comparison, MISSING_LEVEL};
+use super::{Fit, PairPatterns};
+use crate::compare::MISSING_LEVEL;
 use std::collections::BTreeMap;
 
 /// Pairwise link probability from which a pattern's pairs count as ones that matter.
@@ -141,25 +141,29 @@ pub struct CheckStrata<'a> {
 /// Runs the check. `stratum_of(i)` is pair i's stratum; `min_true` is the expected true pairs
 /// a stratum needs before its laws are read for signatures.
 pub fn check(
-    comparison: &Comparison,
+    pp: &PairPatterns,
     strata: &CheckStrata,
     stratum_of: impl Fn(usize) -> usize,
     min_true: f64,
 ) -> ModelCheck {
     let (fits, prior) = (&strata.fits, &strata.prior);
-    let mut counts: BTreeMap<(usize, u64), f64> = BTreeMap::new();
+    let np = pp.patterns.len();
+    let mut counts = vec![0.0f64; fits.len() * np];
     let mut totals = vec![0.0f64; fits.len()];
-    for (i, &code) in comparison.codes.iter().enumerate() {
+    for (i, &j) in pp.of_pair.iter().enumerate() {
         let s = stratum_of(i);
-        *counts.entry((s, code)).or_default() += 1.0;
+        counts[s * np + j as usize] += 1.0;
         totals[s] += 1.0;
     }
     let n_all: f64 = totals.iter().sum();
     let mut cells: Vec<PatternResidual> = counts
         .iter()
-        .map(|(&(s, code), &n)| {
+        .enumerate()
+        .filter(|(_, &n)| n > 0.0)
+        .map(|(c, &n)| {
+            let s = c / np;
             let f = fits[s];
-            let levels = comparison.levels_of(code);
+            let levels = pp.patterns[c % np].clone();
             let pm = class_probability(&f.m, &f.m_missing, &levels);
             let pu = class_probability(&f.u, &f.u_missing, &levels);
             let expected = totals[s] * (f.p * pm + (1.0 - f.p) * pu);
@@ -202,7 +206,7 @@ pub fn check(
         0.0
     };
     let mut signatures = Vec::new();
-    let n_fields = comparison.comparators.len();
+    let n_fields = pp.levels.len();
     // Per stratum and field: pairs per observed level.
     let mut level_counts: Vec<Vec<BTreeMap<u8, f64>>> =
         vec![vec![BTreeMap::new(); n_fields]; fits.len()];
@@ -251,7 +255,7 @@ pub fn check(
     cells.truncate(5);
     ModelCheck {
         deviance,
-        cells: counts.len(),
+        cells: counts.iter().filter(|&&n| n > 0.0).count(),
         misfit_all,
         misfit_matters,
         pairs_matter,
@@ -263,12 +267,12 @@ pub fn check(
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::compare::Comparator;
+    use crate::compare::{Comparator, Comparison};
     use crate::config::Method;
     use crate::rng::Rng;
 
-    fn comparison(codes: Vec<u64>) -> Comparison {
-        Comparison {
+    fn comparison(codes: Vec<u64>) -> PairPatterns {
+        let c = Comparison {
             comparators: (0..3)
                 .map(|_| Comparator {
                     method: Method::Exact,
@@ -278,7 +282,8 @@ mod tests {
                 .collect(),
             place: vec![1, 3, 9],
             codes,
-        }
+        };
+        PairPatterns::new(&c, &c.pattern_counts())
     }
 
     fn fit(p: f64, m: [f64; 3], u: [f64; 3]) -> Fit {

@@ -18,7 +18,6 @@
 use crate::compare::{Comparison, PatternCounts, MISSING_LEVEL};
 
 pub mod check;
-use std::collections::HashMap;
 
 /// Smallest probability a cell of m or u may take, so that no weight is infinite.
 pub const FLOOR: f64 = 1e-6;
@@ -429,24 +428,25 @@ impl Strata {
     }
 
     /// Refits every stratum from the pairs' link probabilities `p`, towards `pooled`.
-    pub fn refit(&mut self, comparison: &Comparison, p: &[f64], pooled: &Fit) {
-        let mut sums: Vec<HashMap<u64, (f64, f64)>> = vec![HashMap::new(); self.masks.len()];
-        for (i, &code) in comparison.codes.iter().enumerate() {
-            let e = sums[self.of_pair[i] as usize].entry(code).or_default();
+    pub fn refit(&mut self, pp: &PairPatterns, p: &[f64], pooled: &Fit) {
+        let np = pp.patterns.len();
+        let mut sums = vec![(0.0f64, 0.0f64); self.masks.len() * np];
+        for (i, &j) in pp.of_pair.iter().enumerate() {
+            let e = &mut sums[self.of_pair[i] as usize * np + j as usize];
             e.0 += 1.0;
             e.1 += p[i];
         }
         self.fits = sums
-            .into_iter()
-            .map(|m| {
-                let mut v: Vec<(u64, (f64, f64))> = m.into_iter().collect();
-                v.sort_unstable_by_key(|e| e.0);
+            .chunks(np.max(1))
+            .take(self.masks.len())
+            .map(|per| {
+                let seen: Vec<usize> = (0..per.len()).filter(|&j| per[j].0 > 0.0).collect();
                 let pc = PatternCounts {
-                    levels: comparison.level_counts(),
-                    patterns: v.iter().map(|e| comparison.levels_of(e.0)).collect(),
-                    counts: v.iter().map(|e| e.1 .0).collect(),
+                    levels: pp.levels.clone(),
+                    patterns: seen.iter().map(|&j| pp.patterns[j].clone()).collect(),
+                    counts: seen.iter().map(|&j| per[j].0).collect(),
                 };
-                let gamma: Vec<f64> = v.iter().map(|e| e.1 .1 / e.1 .0).collect();
+                let gamma: Vec<f64> = seen.iter().map(|&j| per[j].1 / per[j].0).collect();
                 fit_stratum(&pc, &gamma, pooled, STRATUM_PRIOR_PAIRS)
             })
             .collect();
@@ -455,6 +455,74 @@ impl Strata {
     /// The stratum of pair `i` (an index into `masks` and `fits`).
     pub fn stratum_of(&self, i: usize) -> usize {
         self.of_pair[i] as usize
+    }
+}
+
+/// Each candidate pair's agreement pattern as an index into the patterns of a
+/// [`PatternCounts`] (which are sorted by code), so that per-pair loops look a pattern up in
+/// an array instead of hashing its code.
+pub struct PairPatterns {
+    /// Per pair: its pattern's index.
+    pub of_pair: Vec<u32>,
+    /// Per pattern: one level per field ([`MISSING_LEVEL`] for missing).
+    pub patterns: Vec<Vec<u8>>,
+    /// Per pattern: its code.
+    pub codes: Vec<u64>,
+    /// Observed levels per field.
+    pub levels: Vec<usize>,
+}
+
+/// Code spaces up to this size are indexed by a dense table, larger ones by binary search.
+const DENSE_CODES: u64 = 1 << 20;
+
+impl PairPatterns {
+    /// The index of every pair of `comparison` into `counts` (its pattern counts).
+    pub fn new(comparison: &Comparison, counts: &PatternCounts) -> PairPatterns {
+        use rayon::prelude::*;
+        let codes: Vec<u64> = counts
+            .patterns
+            .iter()
+            .map(|p| comparison.encode(p))
+            .collect();
+        let space = codes.last().map_or(0, |&c| c + 1);
+        let of_pair: Vec<u32> = if space <= DENSE_CODES {
+            let mut table = vec![u32::MAX; space as usize];
+            for (j, &c) in codes.iter().enumerate() {
+                table[c as usize] = j as u32;
+            }
+            comparison
+                .codes
+                .par_iter()
+                .map(|&c| table[c as usize])
+                .collect()
+        } else {
+            comparison
+                .codes
+                .par_iter()
+                .map(|c| codes.binary_search(c).map_or(u32::MAX, |j| j as u32))
+                .collect()
+        };
+        PairPatterns {
+            of_pair,
+            patterns: counts.patterns.clone(),
+            codes,
+            levels: counts.levels.clone(),
+        }
+    }
+
+    /// Number of pairs.
+    pub fn len(&self) -> usize {
+        self.of_pair.len()
+    }
+
+    /// True without pairs.
+    pub fn is_empty(&self) -> bool {
+        self.of_pair.is_empty()
+    }
+
+    /// The levels of pair i's pattern.
+    pub fn levels_of(&self, i: usize) -> &[u8] {
+        &self.patterns[self.of_pair[i] as usize]
     }
 }
 
@@ -474,41 +542,58 @@ const LOO_BIN_WIDTH: f64 = 0.05;
 /// pi-weighted level shares. Pairs are binned by their log odds (0.05 wide), so the cost is
 /// one pass over the pairs and the fields, then iterations over bins.
 ///
-/// In: the pairs' pattern codes, their fits (by stratum), link probabilities. Out: per fit,
+/// In: the pairs' patterns, their fits (by stratum), link probabilities. Out: per fit,
 /// per field, per level, the m estimate (floored, summing to 1).
 pub fn leave_one_out_m(
-    comparison: &Comparison,
+    pp: &PairPatterns,
     fits: &[&Fit],
-    stratum_of: impl Fn(usize) -> usize,
+    stratum_of: impl Fn(usize) -> usize + Sync,
     p: &[f64],
 ) -> Vec<Vec<Vec<f64>>> {
-    let levels = comparison.level_counts();
+    use rayon::prelude::*;
+    let levels = &pp.levels;
     let weights: Vec<Vec<Vec<f64>>> = fits.iter().map(|f| f.level_weights()).collect();
-    // Per fit, field and level: pair counts per bin of the leave-one-out log odds.
-    let mut bins: Vec<Vec<Vec<Vec<f64>>>> = fits
-        .iter()
-        .map(|_| {
-            levels
-                .iter()
-                .map(|&l| vec![vec![0.0; LOO_BINS]; l])
-                .collect()
-        })
-        .collect();
+    // Per fit, field and level: pair counts per bin of the leave-one-out log odds (whole
+    // counts, so the sum over chunks does not depend on their order).
+    let empty = || -> Vec<Vec<Vec<Vec<f64>>>> {
+        fits.iter()
+            .map(|_| {
+                levels
+                    .iter()
+                    .map(|&l| vec![vec![0.0; LOO_BINS]; l])
+                    .collect()
+            })
+            .collect()
+    };
     let half = (LOO_BINS / 2) as f64;
-    for (i, &code) in comparison.codes.iter().enumerate() {
-        let g = stratum_of(i);
-        let q = p[i].clamp(1e-12, 1.0 - 1e-12);
-        let logit = (q / (1.0 - q)).ln();
-        for k in 0..levels.len() {
-            let l = comparison.level(code, k);
-            if l == MISSING_LEVEL {
-                continue;
+    let bins = (0..pp.len())
+        .into_par_iter()
+        .fold(empty, |mut bins, i| {
+            let g = stratum_of(i);
+            let q = p[i].clamp(1e-12, 1.0 - 1e-12);
+            let logit = (q / (1.0 - q)).ln();
+            for (k, &l) in pp.levels_of(i).iter().enumerate() {
+                if l == MISSING_LEVEL {
+                    continue;
+                }
+                let x = logit - weights[g][k][l as usize];
+                let b = (x / LOO_BIN_WIDTH + half).clamp(0.0, LOO_BINS as f64 - 1.0) as usize;
+                bins[g][k][l as usize][b] += 1.0;
             }
-            let x = logit - weights[g][k][l as usize];
-            let b = (x / LOO_BIN_WIDTH + half).clamp(0.0, LOO_BINS as f64 - 1.0) as usize;
-            bins[g][k][l as usize][b] += 1.0;
-        }
-    }
+            bins
+        })
+        .reduce(empty, |mut a, b| {
+            for (ag, bg) in a.iter_mut().zip(b) {
+                for (ak, bk) in ag.iter_mut().zip(bg) {
+                    for (al, bl) in ak.iter_mut().zip(bk) {
+                        for (x, y) in al.iter_mut().zip(bl) {
+                            *x += y;
+                        }
+                    }
+                }
+            }
+            a
+        });
     let pi: Vec<f64> = (0..LOO_BINS)
         .map(|b| {
             let x = (b as f64 + 0.5 - half) * LOO_BIN_WIDTH;
@@ -988,7 +1073,11 @@ pub(crate) mod tests {
         );
         let mut strata = Strata::new(&passes);
         assert_eq!(strata.masks, vec![1, 2]);
-        strata.refit(&comparison, &truth, &pooled);
+        strata.refit(
+            &PairPatterns::new(&comparison, &comparison.pattern_counts()),
+            &truth,
+            &pooled,
+        );
         let a = STRATUM_PRIOR_PAIRS;
         for (g, (p, m, u)) in laws.iter().enumerate() {
             let fit = &strata.fits[g];
@@ -1302,7 +1391,8 @@ pub(crate) mod tests {
                 1.0 / (1.0 + (-w).exp())
             })
             .collect();
-        let est = leave_one_out_m(&comparison, &[&trapped], |_| 0, &post);
+        let pp = PairPatterns::new(&comparison, &comparison.pattern_counts());
+        let est = leave_one_out_m(&pp, &[&trapped], |_| 0, &post);
         for k in 0..4 {
             assert!(
                 (est[0][k][0] - m[k]).abs() < 0.02,
