@@ -405,12 +405,11 @@ pub fn pair_weights_indexed(
     let adjusted: Vec<usize> = (0..frequency.len())
         .filter(|&k| frequency[k].is_some())
         .collect();
-    let (weight, theta): (Vec<f64>, Vec<f64>) = (0..cands.len())
+    let weight: Vec<f64> = (0..cands.len())
         .into_par_iter()
         .map(|i| {
             let j = pp.of_pair[i] as usize;
-            let g = stratum(i);
-            let mut w = table[g * np + j];
+            let mut w = table[stratum(i) * np + j];
             for &k in &adjusted {
                 if let Some(vf) = &frequency[k] {
                     if pp.patterns[j][k] == 0 {
@@ -421,8 +420,13 @@ pub fn pair_weights_indexed(
                     }
                 }
             }
-            (w, w + prior[g])
+            w
         })
-        .unzip();
+        .collect();
+    let theta: Vec<f64> = weight
+        .par_iter()
+        .enumerate()
+        .map(|(i, &w)| w + prior[stratum(i)])
+        .collect();
     (weight, theta)
 }

@@ -553,64 +553,94 @@ pub fn leave_one_out_m(
     use rayon::prelude::*;
     let levels = &pp.levels;
     let weights: Vec<Vec<Vec<f64>>> = fits.iter().map(|f| f.level_weights()).collect();
-    // Per fit, field and level: pair counts per bin of the leave-one-out log odds (whole
-    // counts, so the sum over chunks does not depend on their order).
-    let empty = || -> Vec<Vec<Vec<Vec<f64>>>> {
-        fits.iter()
-            .map(|_| {
-                levels
-                    .iter()
-                    .map(|&l| vec![vec![0.0; LOO_BINS]; l])
-                    .collect()
-            })
-            .collect()
-    };
+    // Flat bins: one run of LOO_BINS per (fit, field, level), at `slot[g][k] + l`.
+    let mut slot: Vec<Vec<usize>> = Vec::with_capacity(fits.len());
+    let mut n_slots = 0usize;
+    for _ in fits {
+        slot.push(
+            levels
+                .iter()
+                .map(|&l| {
+                    n_slots += l;
+                    n_slots - l
+                })
+                .collect(),
+        );
+    }
+    // Per (fit, pattern): the (bin run offset, field weight) of each observed field.
+    let np = pp.patterns.len();
+    let cell: Vec<Vec<(usize, f64)>> = (0..fits.len() * np)
+        .map(|c| {
+            let (g, j) = (c / np, c % np);
+            pp.patterns[j]
+                .iter()
+                .enumerate()
+                .filter(|(_, &l)| l != MISSING_LEVEL)
+                .map(|(k, &l)| {
+                    (
+                        (slot[g][k] + l as usize) * LOO_BINS,
+                        weights[g][k][l as usize],
+                    )
+                })
+                .collect()
+        })
+        .collect();
     let half = (LOO_BINS / 2) as f64;
-    let bins = (0..pp.len())
+    let per_width = 1.0 / LOO_BIN_WIDTH;
+    // Pair counts per bin of the leave-one-out log odds, in a few large chunks (whole
+    // counts: the sum over chunks does not depend on their order).
+    let n = pp.len();
+    let chunk = n.div_ceil(8).max(1);
+    let partial: Vec<Vec<u32>> = (0..n.div_ceil(chunk))
         .into_par_iter()
-        .fold(empty, |mut bins, i| {
-            let g = stratum_of(i);
-            let q = p[i].clamp(1e-12, 1.0 - 1e-12);
-            let logit = (q / (1.0 - q)).ln();
-            for (k, &l) in pp.levels_of(i).iter().enumerate() {
-                if l == MISSING_LEVEL {
-                    continue;
+        .map(|c| {
+            let mut bins = vec![0u32; n_slots * LOO_BINS];
+            for i in c * chunk..((c + 1) * chunk).min(n) {
+                let q = p[i].clamp(1e-12, 1.0 - 1e-12);
+                let logit = (q / (1.0 - q)).ln();
+                for &(off, w) in &cell[stratum_of(i) * np + pp.of_pair[i] as usize] {
+                    let b =
+                        ((logit - w) * per_width + half).clamp(0.0, LOO_BINS as f64 - 1.0) as usize;
+                    bins[off + b] += 1;
                 }
-                let x = logit - weights[g][k][l as usize];
-                let b = (x / LOO_BIN_WIDTH + half).clamp(0.0, LOO_BINS as f64 - 1.0) as usize;
-                bins[g][k][l as usize][b] += 1.0;
             }
             bins
         })
-        .reduce(empty, |mut a, b| {
-            for (ag, bg) in a.iter_mut().zip(b) {
-                for (ak, bk) in ag.iter_mut().zip(bg) {
-                    for (al, bl) in ak.iter_mut().zip(bk) {
-                        for (x, y) in al.iter_mut().zip(bl) {
-                            *x += y;
-                        }
-                    }
-                }
-            }
-            a
-        });
+        .collect();
+    let mut bins = vec![0f64; n_slots * LOO_BINS];
+    for part in partial {
+        for (x, y) in bins.iter_mut().zip(part) {
+            *x += y as f64;
+        }
+    }
     let pi: Vec<f64> = (0..LOO_BINS)
         .map(|b| {
             let x = (b as f64 + 0.5 - half) * LOO_BIN_WIDTH;
             1.0 / (1.0 + (-x).exp())
         })
         .collect();
-    bins.iter()
+    fits.iter()
         .enumerate()
-        .map(|(g, per_field)| {
-            per_field
+        .map(|(g, fit)| {
+            levels
                 .iter()
                 .enumerate()
-                .map(|(k, per_level)| {
-                    let u = &fits[g].u[k];
+                .map(|(k, &nl)| {
+                    let u = &fit.u[k];
+                    // Each level's occupied bins: (pairs, pi).
+                    let per_level: Vec<Vec<(f64, f64)>> = (0..nl)
+                        .map(|l| {
+                            let run = &bins[(slot[g][k] + l) * LOO_BINS..][..LOO_BINS];
+                            run.iter()
+                                .zip(&pi)
+                                .filter(|(n, _)| **n > 0.0)
+                                .map(|(&n, &q)| (n, q))
+                                .collect()
+                        })
+                        .collect();
                     let mut m: Vec<f64> = per_level
                         .iter()
-                        .map(|h| h.iter().zip(&pi).map(|(n, q)| n * q).sum())
+                        .map(|h| h.iter().map(|(n, q)| n * q).sum())
                         .collect();
                     normalise_with_floor(&mut m);
                     for _ in 0..LOO_EM_ITERATIONS {
@@ -620,8 +650,6 @@ pub fn leave_one_out_m(
                             .zip(u)
                             .map(|((h, &ml), &ul)| {
                                 h.iter()
-                                    .zip(&pi)
-                                    .filter(|(n, _)| **n > 0.0)
                                     .map(|(n, q)| n * q * ml / (q * ml + (1.0 - q) * ul))
                                     .sum()
                             })

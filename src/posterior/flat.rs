@@ -294,9 +294,10 @@ pub struct Run {
 }
 
 /// Sweeps until the largest change of any pair's marginal in a half-sweep is at most
-/// `tolerance` (to first order: q (1 - q) times the change of the log message) or
-/// `max_iterations` sweeps are made; `damping` is the weight of the old message in each
-/// update.
+/// `tolerance` (to first order, bounded above: q (1 - q) <= min(o, 1 / o) times the change of
+/// the log message) or `max_iterations` sweeps are made; `damping` is the weight of the old
+/// message in each update. With a tolerance of 0 no change is measured: exactly
+/// `max_iterations` sweeps.
 pub fn run<W: Weights>(
     g: &FlatGraph,
     w: &W,
@@ -340,6 +341,7 @@ pub(crate) fn run_with<W: Weights>(
             &mut msg.left_change,
             damping,
             parallel,
+            tolerance > 0.0,
         );
         let b = half_sweep(
             &g.right_start,
@@ -351,8 +353,9 @@ pub(crate) fn run_with<W: Weights>(
             &mut msg.right_change,
             damping,
             parallel,
+            tolerance > 0.0,
         );
-        if a.max(b) <= tolerance {
+        if tolerance > 0.0 && a.max(b) <= tolerance {
             converged = true;
             break;
         }
@@ -383,6 +386,7 @@ fn half_sweep<F: Fn(usize) -> f64 + Sync>(
     rec_change: &mut [f32],
     damping: f64,
     parallel: bool,
+    track: bool,
 ) -> f64 {
     let update = |records: std::ops::Range<usize>,
                   slice: &mut [f64],
@@ -422,12 +426,15 @@ fn half_sweep<F: Fn(usize) -> f64 + Sync>(
                 let new = 1.0 / excl;
                 let slot = &mut slice[s + j - base];
                 let next = damping * *slot + (1.0 - damping) * new;
-                // The change of the pair's marginal q: about q (1 - q) times that of the log
-                // message, which is at most |next - old| / min(next, old).
-                let o = x * next;
-                let q = o / (1.0 + o);
-                let d = (next - *slot).abs() / next.min(*slot) * q * (1.0 - q);
-                rec = rec.max(d);
+                if track {
+                    // The change of the pair's marginal q: about q (1 - q) times that of the
+                    // log message, which is at most |next - old| / min(next, old); and
+                    // q (1 - q) = o / (1 + o)^2 <= min(o, 1 / o) for the odds o.
+                    let o = x * next;
+                    let f = if o < 1.0 { o } else { 1.0 / o };
+                    let d = (next - *slot).abs() / next.min(*slot) * f;
+                    rec = rec.max(d);
+                }
                 *slot = next;
             }
             changes[r - first] = rec as f32;

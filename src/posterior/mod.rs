@@ -49,7 +49,7 @@ pub const PRIOR_BP_ITERATIONS: usize = 8;
 /// Sweeps of the prior's BP in each [`LinkPrior::step`] after the first, from the last step's
 /// messages: the prior log odds move little between the fit's rounds, so the messages track
 /// them, and over the rounds the prior gets more sweeps than one cold start would give.
-pub const PRIOR_WARM_SWEEPS: usize = 3;
+pub const PRIOR_WARM_SWEEPS: usize = 2;
 
 /// Settings of belief propagation.
 #[derive(Debug, Clone)]
@@ -308,6 +308,18 @@ fn exact_component(pairs: &[usize], left: &[u32], right: &[u32], t: Vec<f64>) ->
     if let [t] = t[..] {
         return vec![pairwise(t)];
     }
+    let pairs: Vec<u32> = pairs.iter().map(|&i| i as u32).collect();
+    let (nl, nr, a, b) = local_indices(&pairs, left, right);
+    exact(&Graph::new(nl, nr, a, b, t))
+}
+
+/// A small component's records in local indices: (left records, right records, each pair's
+/// local left, each pair's local right).
+fn local_indices(
+    pairs: &[u32],
+    left: &[u32],
+    right: &[u32],
+) -> (usize, usize, Vec<usize>, Vec<usize>) {
     let local = |ids: &mut Vec<u32>, x: u32| -> usize {
         match ids.iter().position(|&v| v == x) {
             Some(j) => j,
@@ -318,25 +330,26 @@ fn exact_component(pairs: &[usize], left: &[u32], right: &[u32], t: Vec<f64>) ->
         }
     };
     let (mut ls, mut rs) = (Vec::new(), Vec::new());
-    let a: Vec<usize> = pairs.iter().map(|&i| local(&mut ls, left[i])).collect();
-    let b: Vec<usize> = pairs.iter().map(|&i| local(&mut rs, right[i])).collect();
-    exact(&Graph::new(ls.len(), rs.len(), a, b, t))
+    let a: Vec<usize> = pairs
+        .iter()
+        .map(|&i| local(&mut ls, left[i as usize]))
+        .collect();
+    let b: Vec<usize> = pairs
+        .iter()
+        .map(|&i| local(&mut rs, right[i as usize]))
+        .collect();
+    (ls.len(), rs.len(), a, b)
 }
 
 /// The one-to-one link prior's BP state over every candidate pair, kept across the rounds of
 /// the fit so that each [`LinkPrior::step`] starts from the last round's messages (the prior
 /// moves little between rounds).
 pub struct LinkPrior {
-    /// Small components, enumerated exactly at every step (pairs renumbered into `left` /
-    /// `right` below).
-    split: Split,
-    /// The input index of each pair of the small components, in `split`'s order.
-    exact_index: Vec<u32>,
-    /// The group of each of them.
-    exact_group: Vec<u16>,
-    /// Their records.
-    left: Vec<u32>,
-    right: Vec<u32>,
+    /// Small components, enumerated exactly at every step: each as a graph in local indices
+    /// (its thetas rewritten at each step), with the input index of each of its pairs.
+    small: Vec<(Graph, Vec<u32>)>,
+    /// The group of each pair of each small component.
+    small_group: Vec<Vec<u16>>,
     /// The graph of the other pairs, for BP.
     graph: flat::FlatGraph,
     messages: flat::Messages,
@@ -353,19 +366,19 @@ impl LinkPrior {
         let bp = std::mem::take(&mut split.bp);
         let graph = flat::FlatGraph::new(n_left, n_right, left, right, Some(bp));
         let messages = flat::Messages::new(&graph);
-        let exact_index = std::mem::take(&mut split.exact_pairs);
-        let (el, er): (Vec<u32>, Vec<u32>) = exact_index
-            .iter()
-            .map(|&i| (left[i as usize], right[i as usize]))
-            .unzip();
-        split.exact_pairs = (0..exact_index.len() as u32).collect();
-        split.label = Vec::new();
+        let small = split
+            .ranges
+            .par_iter()
+            .map(|r| {
+                let pairs = split.exact_pairs[r.clone()].to_vec();
+                let (nl, nr, a, b) = local_indices(&pairs, left, right);
+                let t = vec![0.0; pairs.len()];
+                (Graph::new(nl, nr, a, b, t), pairs)
+            })
+            .collect();
         let mut prior = LinkPrior {
-            split,
-            exact_index,
-            exact_group: Vec::new(),
-            left: el,
-            right: er,
+            small,
+            small_group: Vec::new(),
             graph,
             messages,
             groups: (Vec::new(), Vec::new()),
@@ -382,10 +395,10 @@ impl LinkPrior {
         let gl: Vec<u16> = (0..g.len()).map(|pos| clip(group[g.pair(pos)])).collect();
         let gr = g.to_right_order(&gl);
         self.groups = (gl, gr);
-        self.exact_group = self
-            .exact_index
+        self.small_group = self
+            .small
             .iter()
-            .map(|&i| clip(group[i as usize]))
+            .map(|(_, pairs)| pairs.iter().map(|&i| clip(group[i as usize])).collect())
             .collect();
     }
 
@@ -447,12 +460,27 @@ impl LinkPrior {
         for (pos, o) in flat::odds(g, &w, &self.messages).iter().enumerate() {
             prior_k[w.left[pos] as usize] += o / (1.0 + o);
         }
-        let exact = self.split.exact_with(&self.left, &self.right, |j| {
-            link_log_odds[self.exact_group[j] as usize]
-        });
-        for ((&k, &i), q) in self.exact_group.iter().zip(&self.exact_index).zip(exact) {
-            post_k[k as usize] += posterior[i as usize];
-            prior_k[k as usize] += q;
+        let lambda: &[f64] = link_log_odds;
+        let exact: Vec<Vec<f64>> = self
+            .small
+            .par_iter_mut()
+            .zip(&self.small_group)
+            .map(|((graph, _), groups)| {
+                for (t, &k) in graph.theta.iter_mut().zip(groups) {
+                    *t = lambda[k as usize];
+                }
+                if let [t] = graph.theta[..] {
+                    vec![pairwise(t)]
+                } else {
+                    exact(graph)
+                }
+            })
+            .collect();
+        for (((_, pairs), groups), q) in self.small.iter().zip(&self.small_group).zip(exact) {
+            for ((&i, &k), q) in pairs.iter().zip(groups).zip(q) {
+                post_k[k as usize] += posterior[i as usize];
+                prior_k[k as usize] += q;
+            }
         }
         for k in 0..n {
             if post_k[k] > 0.0 && prior_k[k] > 0.0 {
