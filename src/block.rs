@@ -12,6 +12,10 @@ use crate::text;
 use rayon::prelude::*;
 use std::collections::HashMap;
 
+/// A fast hash with a fixed seed (key ids are assigned in insertion order, never by iterating
+/// a map, so the hash does not change the result).
+type FastMap<K, V> = HashMap<K, V, foldhash::fast::FixedState>;
+
 /// Default cap on the pairs one block may produce.
 pub const DEFAULT_MAX_BLOCK_PAIRS: u64 = 2_000_000;
 
@@ -77,40 +81,111 @@ pub struct Pass {
 
 /// Builds the candidate pairs of all passes; returns them with per-pass statistics.
 ///
-/// Cost: O(records + pairs) per pass for the keys and blocks, then one parallel sort of all
-/// pass outputs, O(P log P) for P pairs before the union.
+/// Cost: O(records + pairs) per pass for the keys and blocks, a parallel sort of each pass's
+/// pairs, O(P log P) for P pairs, and a merge of the sorted passes into the union.
 pub fn candidates(records: &Records, passes: &[Pass]) -> (Candidates, Vec<PassStats>) {
     let outputs: Vec<(Vec<u64>, PassStats)> =
         passes.par_iter().map(|p| run_pass(records, p)).collect();
-    let total: usize = outputs.iter().map(|(v, _)| v.len()).sum();
-    let mut all: Vec<(u64, u16)> = Vec::with_capacity(total);
-    for (p, (pairs, _)) in outputs.iter().enumerate() {
-        all.extend(pairs.iter().map(|&code| (code, 1u16 << p)));
-    }
-    let stats = outputs.into_iter().map(|(_, s)| s).collect();
-    all.par_sort_unstable();
-    let mut c = Candidates::default();
-    for (code, mask) in all {
-        let (l, r) = ((code >> 32) as u32, code as u32);
-        if c.left.last() == Some(&l) && c.right.last() == Some(&r) {
-            if let Some(m) = c.passes.last_mut() {
-                *m |= mask;
-            }
-            continue;
-        }
-        c.left.push(l);
-        c.right.push(r);
-        c.passes.push(mask);
-    }
-    (c, stats)
+    let (lists, stats): (Vec<Vec<u64>>, Vec<PassStats>) = outputs.into_iter().unzip();
+    (merge(&lists, records.n_left()), stats)
 }
 
-/// Per-record key ids of one side for a pass ([`MISSING`] when any part is missing), and the
-/// key text of each key id (for messages).
+/// The union of the passes' sorted pair lists, each pair once with the mask of the passes
+/// that gave it. Runs of left records are merged in parallel and joined in order.
+fn merge(lists: &[Vec<u64>], n_left: usize) -> Candidates {
+    const RUN: usize = 4096;
+    let runs = n_left.div_ceil(RUN).max(1);
+    let (left, (right, passes)): (Vec<u32>, (Vec<u32>, Vec<u16>)) = (0..runs)
+        .into_par_iter()
+        .flat_map_iter(|run| {
+            let from = ((run * RUN) as u64) << 32;
+            let to = if run + 1 == runs {
+                u64::MAX
+            } else {
+                (((run + 1) * RUN) as u64) << 32
+            };
+            let parts: Vec<&[u64]> = lists
+                .iter()
+                .map(|l| {
+                    let lo = if run == 0 {
+                        0
+                    } else {
+                        l.partition_point(|&c| c < from)
+                    };
+                    let hi = if run + 1 == runs {
+                        l.len()
+                    } else {
+                        l.partition_point(|&c| c < to)
+                    };
+                    &l[lo..hi]
+                })
+                .collect();
+            merge_run(parts).into_iter()
+        })
+        .unzip();
+    Candidates {
+        left,
+        right,
+        passes,
+    }
+}
+
+/// Merges sorted pair lists (list p is pass p) into (left, (right, mask)) triples.
+fn merge_run(lists: Vec<&[u64]>) -> Vec<(u32, (u32, u16))> {
+    let mut out = Vec::with_capacity(lists.iter().map(|l| l.len()).sum());
+    let mut heads = vec![0usize; lists.len()];
+    loop {
+        let mut next: Option<u64> = None;
+        for (list, &h) in lists.iter().zip(&heads) {
+            if let Some(&code) = list.get(h) {
+                next = Some(next.map_or(code, |n| n.min(code)));
+            }
+        }
+        let Some(code) = next else {
+            break;
+        };
+        let mut mask = 0u16;
+        for (p, (list, h)) in lists.iter().zip(heads.iter_mut()).enumerate() {
+            while list.get(*h) == Some(&code) {
+                mask |= 1 << p;
+                *h += 1;
+            }
+        }
+        out.push(((code >> 32) as u32, (code as u32, mask)));
+    }
+    out
+}
+
+/// Per-record key ids of one side for a pass ([`MISSING`] when any part is missing), and how
+/// each key id was built, from which its text (for messages) is made on demand.
 struct Keys {
     left: Vec<u32>,
     right: Vec<u32>,
-    text: Vec<String>,
+    /// Per key id: the key of the parts before the last ([`EMPTY_KEY`] for none), the last
+    /// part's position in the pass and its value id.
+    origin: Vec<(u32, usize, u32)>,
+    /// Per part: the text of each transformed value id.
+    part_text: Vec<Vec<String>>,
+}
+
+/// The key of no parts, the start of every key.
+const EMPTY_KEY: u32 = u32::MAX - 1;
+
+impl Keys {
+    fn len(&self) -> usize {
+        self.origin.len()
+    }
+
+    /// The key's text: its parts' texts joined with `|`.
+    fn text(&self, k: u32) -> String {
+        let (prefix, p, part) = self.origin[k as usize];
+        let last = &self.part_text[p][part as usize];
+        if prefix == EMPTY_KEY {
+            last.clone()
+        } else {
+            format!("{}|{last}", self.text(prefix))
+        }
+    }
 }
 
 fn transform_value(fv: &FieldValues, v: u32, t: Transform) -> String {
@@ -156,7 +231,7 @@ fn build_keys(records: &Records, parts: &[KeyPart]) -> Keys {
     let mut part_text: Vec<Vec<String>> = Vec::with_capacity(parts.len());
     for part in parts {
         let fv = &records.fields[part.field];
-        let mut seen: HashMap<String, u32> = HashMap::new();
+        let mut seen: FastMap<String, u32> = FastMap::default();
         let mut texts = Vec::new();
         let transformed: Vec<String> = (0..fv.dict.len() as u32)
             .into_par_iter()
@@ -178,13 +253,13 @@ fn build_keys(records: &Records, parts: &[KeyPart]) -> Keys {
         part_ids.push(ids);
         part_text.push(texts);
     }
-    let mut combos: HashMap<(u32, u32), u32> = HashMap::new();
-    let mut text: Vec<String> = Vec::new();
-    let mut key_of = |side: &[Vec<u32>]| -> Vec<u32> {
-        let n = side.first().map_or(0, Vec::len);
+    let mut combos: FastMap<(u32, u32), u32> = FastMap::default();
+    let mut origin: Vec<(u32, usize, u32)> = Vec::new();
+    let mut key_of = |side: &[&[u32]]| -> Vec<u32> {
+        let n = side.first().map_or(0, |v| v.len());
         (0..n)
             .map(|i| {
-                let mut key = u32::MAX - 1; // the empty prefix
+                let mut key = EMPTY_KEY;
                 for (p, values) in side.iter().enumerate() {
                     let v = values[i];
                     let part = if v == MISSING {
@@ -195,14 +270,9 @@ fn build_keys(records: &Records, parts: &[KeyPart]) -> Keys {
                     if part == MISSING {
                         return MISSING;
                     }
-                    let next = combos.len() as u32;
+                    let next = origin.len() as u32;
                     key = *combos.entry((key, part)).or_insert_with(|| {
-                        let prefix = if key == u32::MAX - 1 {
-                            String::new()
-                        } else {
-                            format!("{}|", text[key as usize])
-                        };
-                        text.push(format!("{prefix}{}", part_text[p][part as usize]));
+                        origin.push((key, p, part));
                         next
                     });
                 }
@@ -210,17 +280,22 @@ fn build_keys(records: &Records, parts: &[KeyPart]) -> Keys {
             })
             .collect()
     };
-    let left_side: Vec<Vec<u32>> = parts
+    let left_side: Vec<&[u32]> = parts
         .iter()
-        .map(|p| records.fields[p.field].left.clone())
+        .map(|p| records.fields[p.field].left.as_slice())
         .collect();
-    let right_side: Vec<Vec<u32>> = parts
+    let right_side: Vec<&[u32]> = parts
         .iter()
-        .map(|p| records.fields[p.field].right.clone())
+        .map(|p| records.fields[p.field].right.as_slice())
         .collect();
     let left = key_of(&left_side);
     let right = key_of(&right_side);
-    Keys { left, right, text }
+    Keys {
+        left,
+        right,
+        origin,
+        part_text,
+    }
 }
 
 /// Groups record indices by key id: (offsets, members) in counting-sort layout.
@@ -249,11 +324,15 @@ fn group(keys: &[u32], n_keys: usize) -> (Vec<u32>, Vec<u32>) {
 /// together by (key text, side, record index); each record is paired with the records of the
 /// other table among the next `window - 1` places. Cost O(n log n + n w).
 fn sorted_neighbourhood(keys: &Keys, window: usize) -> Vec<u64> {
+    let text: Vec<String> = (0..keys.len() as u32)
+        .into_par_iter()
+        .map(|k| keys.text(k))
+        .collect();
     let mut merged: Vec<(&str, u8, u32)> = Vec::with_capacity(keys.left.len() + keys.right.len());
     for (side, ks) in [(0u8, &keys.left), (1u8, &keys.right)] {
         for (i, &k) in ks.iter().enumerate() {
             if k != MISSING {
-                merged.push((keys.text[k as usize].as_str(), side, i as u32));
+                merged.push((text[k as usize].as_str(), side, i as u32));
             }
         }
     }
@@ -286,8 +365,8 @@ fn run_pass(records: &Records, pass: &Pass) -> (Vec<u64>, PassStats) {
         };
         return (pairs, stats);
     }
-    let n_keys = keys.text.len();
-    let (ls, lm) = group(&keys.left, n_keys);
+    let n_keys = keys.len();
+    let (ls, _) = group(&keys.left, n_keys);
     let (rs, rm) = group(&keys.right, n_keys);
     let mut stats = PassStats {
         name: pass.name.clone(),
@@ -306,7 +385,7 @@ fn run_pass(records: &Records, pass: &Pass) -> (Vec<u64>, PassStats) {
             continue;
         }
         if size > pass.max_block_pairs {
-            stats.skipped.push((keys.text[k].clone(), size));
+            stats.skipped.push((keys.text(k as u32), size));
             continue;
         }
         stats.blocks += 1;
@@ -317,13 +396,24 @@ fn run_pass(records: &Records, pass: &Pass) -> (Vec<u64>, PassStats) {
         }
         kept.push(k);
     }
-    let pairs: Vec<u64> = kept
+    // Each left record is in one block of the pass, whose right records are in increasing
+    // order: going through the left records in order gives the pairs sorted, with no sort.
+    let mut keep = vec![false; n_keys];
+    for &k in &kept {
+        keep[k] = true;
+    }
+    let pairs: Vec<u64> = keys
+        .left
         .par_iter()
-        .flat_map_iter(|&k| {
-            let left = &lm[ls[k] as usize..ls[k + 1] as usize];
-            let right = &rm[rs[k] as usize..rs[k + 1] as usize];
-            left.iter()
-                .flat_map(move |&a| right.iter().map(move |&b| ((a as u64) << 32) | b as u64))
+        .enumerate()
+        .with_min_len(1024)
+        .flat_map_iter(|(a, &k)| {
+            let right: &[u32] = if k != MISSING && keep[k as usize] {
+                &rm[rs[k as usize] as usize..rs[k as usize + 1] as usize]
+            } else {
+                &[]
+            };
+            right.iter().map(move |&b| ((a as u64) << 32) | b as u64)
         })
         .collect();
     (pairs, stats)

@@ -143,9 +143,7 @@ pub fn date_level(a: Date, b: Date) -> u8 {
         if a.year == b.year && am == bd && ad == bm {
             return 1;
         }
-        let da = format!("{:04}{:02}{:02}", a.year, am, ad);
-        let db = format!("{:04}{:02}{:02}", b.year, bm, bd);
-        if da.bytes().zip(db.bytes()).filter(|(x, y)| x != y).count() == 1 {
+        if one_digit_off((a.year, am, ad), (b.year, bm, bd)) {
             return 2;
         }
     }
@@ -153,6 +151,33 @@ pub fn date_level(a: Date, b: Date) -> u8 {
         return 3;
     }
     4
+}
+
+/// True when two dates written as YYYYMMDD differ in exactly one of the digits (compared
+/// place by place as far as the shorter one goes). Four-digit years and two-digit months and
+/// days (every parsed date) are compared digit by digit without building the text.
+fn one_digit_off(a: (i32, u8, u8), b: (i32, u8, u8)) -> bool {
+    let plain = |(y, m, d): (i32, u8, u8)| (0..=9999).contains(&y) && m < 100 && d < 100;
+    if !plain(a) || !plain(b) {
+        let da = format!("{:04}{:02}{:02}", a.0, a.1, a.2);
+        let db = format!("{:04}{:02}{:02}", b.0, b.1, b.2);
+        return da.bytes().zip(db.bytes()).filter(|(x, y)| x != y).count() == 1;
+    }
+    let digits = |(y, m, d): (i32, u8, u8)| {
+        let (y, m, d) = (y as u32, m as u32, d as u32);
+        [
+            y / 1000,
+            y / 100 % 10,
+            y / 10 % 10,
+            y % 10,
+            m / 10,
+            m % 10,
+            d / 10,
+            d % 10,
+        ]
+    };
+    let (x, z) = (digits(a), digits(b));
+    x.iter().zip(&z).filter(|(p, q)| p != q).count() == 1
 }
 
 /// Every candidate pair's pattern code.
@@ -220,6 +245,11 @@ pub struct PatternCounts {
 }
 
 /// Compares every candidate pair on every field (pairs in parallel).
+///
+/// Each field's values are prepared once (the characters of every distinct text, so a pair
+/// costs no decoding or allocation), and the right records' value ids are laid out row by row
+/// so one pair reads one short run of memory on the right side. The levels are those of
+/// [`Comparator::level`].
 pub fn compare(records: &Records, cands: &Candidates) -> Comparison {
     let comparators: Vec<Comparator> = records.fields.iter().map(Comparator::for_field).collect();
     let mut place = Vec::with_capacity(comparators.len());
@@ -228,23 +258,30 @@ pub fn compare(records: &Records, cands: &Candidates) -> Comparison {
         place.push(p);
         p = p.saturating_mul(c.levels() as u64 + 1);
     }
-    let codes = (0..cands.len())
-        .into_par_iter()
-        .map(|i| {
-            let (a, b) = (cands.left[i] as usize, cands.right[i] as usize);
-            comparators
+    let fields: Vec<FieldCompare> = comparators
+        .iter()
+        .zip(&records.fields)
+        .zip(&place)
+        .map(|((c, fv), &pl)| FieldCompare::new(c, fv, pl))
+        .collect();
+    let nf = fields.len();
+    let mut right_rows = vec![MISSING; records.n_right() * nf];
+    for (k, fv) in records.fields.iter().enumerate() {
+        for (j, &v) in fv.right.iter().enumerate() {
+            right_rows[j * nf + k] = v;
+        }
+    }
+    let codes = cands
+        .left
+        .par_iter()
+        .zip(cands.right.par_iter())
+        .with_min_len(1024)
+        .map(|(&a, &b)| {
+            let row = &right_rows[b as usize * nf..(b as usize + 1) * nf];
+            fields
                 .iter()
-                .zip(&records.fields)
-                .zip(&place)
-                .map(|((c, fv), &pl)| {
-                    let l = c.level(fv, fv.left[a], fv.right[b]);
-                    let digit = if l == MISSING_LEVEL {
-                        c.levels() as u64
-                    } else {
-                        l as u64
-                    };
-                    digit * pl
-                })
+                .zip(row)
+                .map(|(f, &y)| f.digit(f.left[a as usize], y))
                 .sum()
         })
         .collect();
@@ -255,21 +292,266 @@ pub fn compare(records: &Records, cands: &Candidates) -> Comparison {
     }
 }
 
+/// One field made ready for comparing many pairs: the left value ids, the place value and
+/// missing digit of the field in a pattern code, and the distinct values in the form its method
+/// compares.
+struct FieldCompare<'a> {
+    comparator: &'a Comparator,
+    left: &'a [u32],
+    place: u64,
+    missing_digit: u64,
+    values: Prepared<'a>,
+}
+
+/// The distinct values of a field as its method compares them.
+enum Prepared<'a> {
+    /// Only the ids are compared.
+    Ids,
+    /// Texts that are all ASCII, as bytes: entry `v` is `data[start[v]..start[v + 1]]`.
+    Bytes { data: Vec<u8>, start: Vec<usize> },
+    /// Other texts, as characters, laid out as `Bytes`.
+    Chars { data: Vec<char>, start: Vec<usize> },
+    /// Parsed dates.
+    Dates(&'a [Date]),
+    /// Parsed numbers.
+    Numbers(&'a [f64]),
+}
+
+impl<'a> FieldCompare<'a> {
+    fn new(comparator: &'a Comparator, fv: &'a FieldValues, place: u64) -> FieldCompare<'a> {
+        let values = match comparator.method {
+            Method::Exact => Prepared::Ids,
+            Method::Date => Prepared::Dates(&fv.dates),
+            Method::Number => Prepared::Numbers(&fv.numbers),
+            Method::JaroWinkler | Method::Levenshtein => {
+                let mut start = Vec::with_capacity(fv.dict.len() + 1);
+                start.push(0);
+                if fv.dict.iter().all(|v| v.is_ascii()) {
+                    let mut data = Vec::new();
+                    for v in &fv.dict {
+                        data.extend_from_slice(v.as_bytes());
+                        start.push(data.len());
+                    }
+                    Prepared::Bytes { data, start }
+                } else {
+                    let mut data = Vec::new();
+                    for v in &fv.dict {
+                        data.extend(v.chars());
+                        start.push(data.len());
+                    }
+                    Prepared::Chars { data, start }
+                }
+            }
+        };
+        FieldCompare {
+            comparator,
+            left: &fv.left,
+            place,
+            missing_digit: comparator.levels() as u64,
+            values,
+        }
+    }
+
+    /// The field's contribution to a pattern code for values `a` (left) and `b` (right).
+    #[inline]
+    fn digit(&self, a: u32, b: u32) -> u64 {
+        let level = self.level(a, b);
+        let digit = if level == MISSING_LEVEL {
+            self.missing_digit
+        } else {
+            level as u64
+        };
+        digit * self.place
+    }
+
+    /// As [`Comparator::level`].
+    #[inline]
+    fn level(&self, a: u32, b: u32) -> u8 {
+        if a == MISSING || b == MISSING {
+            return MISSING_LEVEL;
+        }
+        if a == b {
+            return 0;
+        }
+        let c = self.comparator;
+        let (a, b) = (a as usize, b as usize);
+        match &self.values {
+            Prepared::Ids => 1,
+            Prepared::Bytes { data, start } => {
+                let (x, y) = (&data[start[a]..start[a + 1]], &data[start[b]..start[b + 1]]);
+                c.similarity_level(self.similarity(x, y))
+            }
+            Prepared::Chars { data, start } => {
+                let (x, y) = (&data[start[a]..start[a + 1]], &data[start[b]..start[b + 1]]);
+                c.similarity_level(self.similarity(x, y))
+            }
+            Prepared::Dates(d) => date_level(d[a], d[b]),
+            Prepared::Numbers(n) => c.number_level(n[a], n[b]),
+        }
+    }
+
+    fn similarity<T: Copy + PartialEq>(&self, x: &[T], y: &[T]) -> f64 {
+        if self.comparator.method == Method::Levenshtein {
+            normalized_levenshtein(x, y)
+        } else {
+            jaro_winkler(x, y)
+        }
+    }
+}
+
+/// Jaro–Winkler similarity of two sequences, step for step (and so bit for bit) the
+/// computation of `strsim::jaro_winkler` on their characters, without its allocation: the
+/// matched flags are bit sets when both sequences are at most 64 long.
+pub fn jaro_winkler<T: Copy + PartialEq>(a: &[T], b: &[T]) -> f64 {
+    let sim = jaro(a, b);
+    if sim > 0.7 {
+        let prefix = a.iter().take(4).zip(b).take_while(|(x, y)| x == y).count();
+        sim + 0.1 * prefix as f64 * (1.0 - sim)
+    } else {
+        sim
+    }
+}
+
+fn jaro<T: Copy + PartialEq>(a: &[T], b: &[T]) -> f64 {
+    let (a_len, b_len) = (a.len(), b.len());
+    if a_len == 0 && b_len == 0 {
+        return 1.0;
+    } else if a_len == 0 || b_len == 0 {
+        return 0.0;
+    }
+    let range = (a_len.max(b_len) / 2).saturating_sub(1);
+    let mut matches = 0usize;
+    let mut transpositions = 0usize;
+    if a_len <= 64 && b_len <= 64 {
+        let (mut a_flags, mut b_flags) = (0u64, 0u64);
+        for (i, x) in a.iter().enumerate() {
+            let (lo, hi) = (i.saturating_sub(range), b_len.min(i + range + 1));
+            for (y, j) in b[lo.min(hi)..hi].iter().zip(lo..) {
+                if b_flags & (1 << j) == 0 && x == y {
+                    a_flags |= 1 << i;
+                    b_flags |= 1 << j;
+                    matches += 1;
+                    break;
+                }
+            }
+        }
+        while a_flags != 0 {
+            let (i, j) = (a_flags.trailing_zeros(), b_flags.trailing_zeros());
+            if a[i as usize] != b[j as usize] {
+                transpositions += 1;
+            }
+            a_flags &= a_flags - 1;
+            b_flags &= b_flags - 1;
+        }
+    } else {
+        let mut a_flags = vec![false; a_len];
+        let mut b_flags = vec![false; b_len];
+        for (i, x) in a.iter().enumerate() {
+            let (lo, hi) = (i.saturating_sub(range), b_len.min(i + range + 1));
+            for (y, j) in b[lo.min(hi)..hi].iter().zip(lo..) {
+                if !b_flags[j] && x == y {
+                    a_flags[i] = true;
+                    b_flags[j] = true;
+                    matches += 1;
+                    break;
+                }
+            }
+        }
+        let mut bs = b.iter().zip(&b_flags).filter(|(_, &f)| f).map(|(y, _)| y);
+        for (x, _) in a.iter().zip(&a_flags).filter(|(_, &f)| f) {
+            if bs.next().is_some_and(|y| x != y) {
+                transpositions += 1;
+            }
+        }
+    }
+    transpositions /= 2;
+    if matches == 0 {
+        0.0
+    } else {
+        ((matches as f64 / a_len as f64)
+            + (matches as f64 / b_len as f64)
+            + ((matches - transpositions) as f64 / matches as f64))
+            / 3.0
+    }
+}
+
+/// Levenshtein similarity of two sequences: 1 − distance / longer length, as
+/// `strsim::normalized_levenshtein` computes it on their characters.
+pub fn normalized_levenshtein<T: Copy + PartialEq>(a: &[T], b: &[T]) -> f64 {
+    if a.is_empty() && b.is_empty() {
+        return 1.0;
+    }
+    1.0 - (levenshtein(a, b) as f64) / (a.len().max(b.len()) as f64)
+}
+
+fn levenshtein<T: Copy + PartialEq>(a: &[T], b: &[T]) -> usize {
+    let mut cache: Vec<usize> = (1..b.len() + 1).collect();
+    let mut result = b.len();
+    for (i, x) in a.iter().enumerate() {
+        result = i + 1;
+        let mut distance_b = i;
+        for (j, y) in b.iter().enumerate() {
+            let distance_a = distance_b + usize::from(x != y);
+            distance_b = cache[j];
+            result = (result + 1).min(distance_a.min(distance_b + 1));
+            cache[j] = result;
+        }
+    }
+    result
+}
+
+/// Pattern codes below this many are counted in a dense table rather than a hash map.
+const DENSE_CODES: u64 = 1 << 16;
+
 impl Comparison {
-    /// Collapses the pairs to distinct patterns with counts, ordered by pattern code, so the
-    /// result does not depend on the thread count.
-    pub fn pattern_counts(&self) -> PatternCounts {
-        let counts: HashMap<u64, u64> = self
+    /// The number of possible pattern codes (the product of the fields' radices), when it fits
+    /// a dense table of [`DENSE_CODES`] entries.
+    fn dense_codes(&self) -> Option<usize> {
+        let mut n = 1u64;
+        for c in &self.comparators {
+            n = n.checked_mul(c.levels() as u64 + 1)?;
+        }
+        (n <= DENSE_CODES).then_some(n as usize)
+    }
+
+    /// The distinct pattern codes in increasing order, with how many pairs show each.
+    fn code_counts(&self) -> Vec<(u64, u64)> {
+        if let Some(n) = self.dense_codes() {
+            let counts = self
+                .codes
+                .par_chunks(1 << 16)
+                .fold(
+                    || vec![0u64; n],
+                    |mut acc, chunk| {
+                        for &c in chunk {
+                            acc[c as usize] += 1;
+                        }
+                        acc
+                    },
+                )
+                .reduce(
+                    || vec![0u64; n],
+                    |mut a, b| {
+                        for (x, y) in a.iter_mut().zip(b) {
+                            *x += y;
+                        }
+                        a
+                    },
+                );
+            return (0..n as u64).zip(counts).filter(|&(_, k)| k > 0).collect();
+        }
+        type Counts = HashMap<u64, u64, foldhash::fast::FixedState>;
+        let counts: Counts = self
             .codes
             .par_chunks(1 << 16)
             .map(|chunk| {
-                let mut m: HashMap<u64, u64> = HashMap::new();
+                let mut m = Counts::default();
                 for &c in chunk {
                     *m.entry(c).or_default() += 1;
                 }
                 m
             })
-            .reduce(HashMap::new, |mut a, b| {
+            .reduce(Counts::default, |mut a, b| {
                 for (k, v) in b {
                     *a.entry(k).or_default() += v;
                 }
@@ -277,17 +559,125 @@ impl Comparison {
             });
         let mut sorted: Vec<(u64, u64)> = counts.into_iter().collect();
         sorted.sort_unstable();
+        sorted
+    }
+
+    /// Collapses the pairs to distinct patterns with counts, ordered by pattern code, so the
+    /// result does not depend on the thread count.
+    pub fn pattern_counts(&self) -> PatternCounts {
+        let sorted = self.code_counts();
         PatternCounts {
             levels: self.level_counts(),
             patterns: sorted.iter().map(|&(c, _)| self.levels_of(c)).collect(),
             counts: sorted.iter().map(|&(_, n)| n as f64).collect(),
         }
     }
+
+    /// Per candidate pair, the index of its pattern in `counts.patterns` (which must come from
+    /// [`Comparison::pattern_counts`] of this comparison, or hold every pattern seen): a dense
+    /// `u32` that later stages can use in place of the 64-bit code. A pair whose pattern is
+    /// not in `counts` gets `u32::MAX`.
+    pub fn pattern_index(&self, counts: &PatternCounts) -> Vec<u32> {
+        let codes: Vec<u64> = counts.patterns.iter().map(|p| self.encode(p)).collect();
+        if let Some(n) = self.dense_codes() {
+            let mut table = vec![u32::MAX; n];
+            for (i, &c) in codes.iter().enumerate() {
+                if let Some(slot) = table.get_mut(c as usize) {
+                    *slot = i as u32;
+                }
+            }
+            return self
+                .codes
+                .par_iter()
+                .with_min_len(4096)
+                .map(|&c| table.get(c as usize).copied().unwrap_or(u32::MAX))
+                .collect();
+        }
+        let index: HashMap<u64, u32, foldhash::fast::FixedState> = codes
+            .iter()
+            .enumerate()
+            .map(|(i, &c)| (c, i as u32))
+            .collect();
+        self.codes
+            .par_iter()
+            .with_min_len(4096)
+            .map(|c| index.get(c).copied().unwrap_or(u32::MAX))
+            .collect()
+    }
+
+    /// [`Comparison::pattern_counts`] and [`Comparison::pattern_index`] together.
+    pub fn pattern_counts_and_index(&self) -> (PatternCounts, Vec<u32>) {
+        let counts = self.pattern_counts();
+        let index = self.pattern_index(&counts);
+        (counts, index)
+    }
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
+    use proptest::prelude::*;
+
+    proptest! {
+        // Oracle: strsim, whose computation ours repeats step for step; the results must be
+        // equal to the bit, also for texts longer than 64 characters and non-ASCII ones.
+        #[test]
+        fn similarities_equal_strsim(
+            a in "[abcé ]{0,70}",
+            b in "[abcé ]{0,70}",
+        ) {
+            let (x, y): (Vec<char>, Vec<char>) = (a.chars().collect(), b.chars().collect());
+            prop_assert_eq!(jaro_winkler(&x, &y).to_bits(), strsim::jaro_winkler(&a, &b).to_bits());
+            prop_assert_eq!(
+                normalized_levenshtein(&x, &y).to_bits(),
+                strsim::normalized_levenshtein(&a, &b).to_bits()
+            );
+            if a.is_ascii() && b.is_ascii() {
+                prop_assert_eq!(
+                    jaro_winkler(a.as_bytes(), b.as_bytes()).to_bits(),
+                    strsim::jaro_winkler(&a, &b).to_bits()
+                );
+            }
+        }
+
+        // Oracle: the definition, the two dates written out as YYYYMMDD and compared digit by
+        // digit.
+        #[test]
+        fn one_digit_off_equals_text(
+            y1 in 0i32..12000, m1 in 0u8..120, d1 in 0u8..40,
+            y2 in 0i32..12000, m2 in 0u8..120, d2 in 0u8..40,
+        ) {
+            let da = format!("{y1:04}{m1:02}{d1:02}");
+            let db = format!("{y2:04}{m2:02}{d2:02}");
+            let want = da.bytes().zip(db.bytes()).filter(|(x, y)| x != y).count() == 1;
+            prop_assert_eq!(one_digit_off((y1, m1, d1), (y2, m2, d2)), want);
+        }
+    }
+
+    #[test]
+    fn pattern_index_points_at_each_pairs_pattern() {
+        let comparison = Comparison {
+            comparators: vec![
+                Comparator {
+                    method: Method::Exact,
+                    bands: vec![],
+                    relative: false,
+                };
+                2
+            ],
+            place: vec![1, 3],
+            codes: vec![4, 0, 4, 8, 2, 0],
+        };
+        let (counts, index) = comparison.pattern_counts_and_index();
+        assert_eq!(counts.counts, vec![2.0, 1.0, 2.0, 1.0]);
+        assert_eq!(index, vec![2, 0, 2, 3, 1, 0]);
+        for (i, &k) in index.iter().enumerate() {
+            assert_eq!(
+                comparison.encode(&counts.patterns[k as usize]),
+                comparison.codes[i]
+            );
+        }
+    }
 
     #[test]
     fn jaro_winkler_worked_examples() {

@@ -6,6 +6,7 @@
 //! only when all of them are complete, so a failed run leaves no partial outputs.
 
 use crate::error::{Error, Result};
+use rayon::prelude::*;
 use std::collections::HashMap;
 use std::fs::File;
 use std::io::{BufWriter, Read, Write};
@@ -130,7 +131,8 @@ pub struct ReadSpec {
     pub delimiter: u8,
 }
 
-/// Reads a table from a file; see [`read_table_from`].
+/// Reads a table from a file; see [`read_table_from`]. The file is read once; its bytes are
+/// hashed and parsed from memory.
 pub fn read_table(path: &Path, spec: &ReadSpec) -> Result<Table> {
     let mut file =
         File::open(path).map_err(|e| Error::input(format!("cannot open: {e}")).with_file(path))?;
@@ -145,7 +147,90 @@ pub fn read_table(path: &Path, spec: &ReadSpec) -> Result<Table> {
 /// The header row is required; the id column must exist, and every id must be non-empty and
 /// unique. Values are trimmed; an empty value means missing. Rows with a different number of
 /// cells than the header are an error.
+///
+/// The SHA-256 of the bytes is computed on another thread while the rows are parsed (the two
+/// take about as long as each other), and the needed cells are checked and turned into strings
+/// per column in parallel. The error reported is the one a row-by-row reading would meet
+/// first, whatever the thread count.
 pub fn read_table_from(bytes: &[u8], label: &Path, spec: &ReadSpec) -> Result<Table> {
+    let (sha256, parsed) = rayon::join(|| sha256_hex(bytes), || parse_table(bytes, label, spec));
+    let (ids, columns, lines) = parsed?;
+    Ok(Table {
+        path: label.to_path_buf(),
+        ids,
+        columns,
+        lines,
+        bytes: bytes.len() as u64,
+        sha256,
+    })
+}
+
+/// The ids, needed columns and row lines of a table read from CSV bytes (see
+/// [`read_table_from`]).
+type Parsed = (Vec<String>, HashMap<String, Vec<String>>, Vec<u64>);
+
+/// The raw cells of one column, in row order, packed into one buffer.
+#[derive(Default)]
+struct CellColumn {
+    bytes: Vec<u8>,
+    /// Per row: where the cell ends in `bytes` (it starts where the previous one ends).
+    ends: Vec<usize>,
+}
+
+impl CellColumn {
+    fn push(&mut self, raw: &[u8]) {
+        self.bytes.extend_from_slice(raw);
+        self.ends.push(self.bytes.len());
+    }
+
+    fn raw(&self, row: usize) -> &[u8] {
+        let start = if row == 0 { 0 } else { self.ends[row - 1] };
+        &self.bytes[start..self.ends[row]]
+    }
+
+    /// The trimmed text of a cell; `None` when it is too long or not UTF-8.
+    fn text(&self, row: usize) -> Option<&str> {
+        let raw = self.raw(row);
+        if raw.len() > MAX_CELL_BYTES {
+            return None;
+        }
+        std::str::from_utf8(raw).ok().map(str::trim)
+    }
+
+    /// Every cell's trimmed text (rows in parallel), and the first row whose cell is too long
+    /// or not UTF-8 (its string is left empty).
+    fn strings(&self) -> (Vec<String>, Option<usize>) {
+        let cells: Vec<Option<String>> = (0..self.ends.len())
+            .into_par_iter()
+            .with_min_len(4096)
+            .map(|r| self.text(r).map(str::to_string))
+            .collect();
+        let bad = cells.iter().position(Option::is_none);
+        let strings = cells
+            .into_par_iter()
+            .with_min_len(4096)
+            .map(Option::unwrap_or_default)
+            .collect();
+        (strings, bad)
+    }
+
+    /// The error for a cell that [`CellColumn::text`] refused.
+    fn error(&self, row: usize, line: u64, col: &str) -> Error {
+        let raw = self.raw(row);
+        if raw.len() > MAX_CELL_BYTES {
+            Error::input(format!(
+                "value is {} bytes long, over the limit of {MAX_CELL_BYTES}",
+                raw.len()
+            ))
+            .with_line(line)
+            .with_column(col)
+        } else {
+            not_utf8(line, col)
+        }
+    }
+}
+
+fn parse_table(bytes: &[u8], label: &Path, spec: &ReadSpec) -> Result<Parsed> {
     let at = |e: Error| e.with_file(label);
     let owned;
     let mut data: &[u8] = match spec.encoding {
@@ -194,60 +279,87 @@ pub fn read_table_from(bytes: &[u8], label: &Path, spec: &ReadSpec) -> Result<Ta
             wanted.push((c.clone(), find(c)?));
         }
     }
-    let mut ids = Vec::new();
+    // One pass over the rows copies the needed cells (the id first, then the wanted columns)
+    // into one buffer per column; it stops at the first row that cannot be read.
+    let take: Vec<usize> = std::iter::once(id_at)
+        .chain(wanted.iter().map(|(_, i)| *i))
+        .collect();
+    let mut cells: Vec<CellColumn> = take.iter().map(|_| CellColumn::default()).collect();
     let mut lines = Vec::new();
-    let mut cols: Vec<Vec<String>> = vec![Vec::new(); wanted.len()];
-    let mut seen: HashMap<String, u64> = HashMap::new();
     let mut record = csv::ByteRecord::new();
     let mut lines_at = LineCounter::default();
-    while let Some(line) =
-        next_row(&mut rdr, &mut record, data, &mut lines_at, names.len()).map_err(at)?
-    {
-        let cell = |i: usize, col: &str| -> Result<String> {
-            let raw = record.get(i).unwrap_or(b"");
-            if raw.len() > MAX_CELL_BYTES {
-                return Err(at(Error::input(format!(
-                    "value is {} bytes long, over the limit of {MAX_CELL_BYTES}",
-                    raw.len()
-                ))
-                .with_line(line)
-                .with_column(col)));
+    let mut stop = None;
+    loop {
+        match next_row(&mut rdr, &mut record, data, &mut lines_at, names.len()) {
+            Ok(Some(line)) => {
+                for (col, &i) in cells.iter_mut().zip(&take) {
+                    col.push(record.get(i).unwrap_or(b""));
+                }
+                lines.push(line);
             }
-            let s = std::str::from_utf8(raw).map_err(|_| at(not_utf8(line, col)))?;
-            Ok(s.trim().to_string())
-        };
-        let id = cell(id_at, &spec.id)?;
-        if id.is_empty() {
-            return Err(at(Error::input("empty id")
-                .with_line(line)
-                .with_column(&spec.id)));
+            Ok(None) => break,
+            Err(e) => {
+                stop = Some(e);
+                break;
+            }
         }
-        if let Some(first) = seen.get(&id) {
-            return Err(at(Error::input(format!(
-                "duplicate id (first seen on line {first})"
-            ))
-            .with_line(line)
-            .with_column(&spec.id)));
-        }
-        for (k, (name, i)) in wanted.iter().enumerate() {
-            cols[k].push(cell(*i, name)?);
-        }
-        seen.insert(id.clone(), line);
-        ids.push(id);
-        lines.push(line);
     }
-    if ids.is_empty() {
+    let checked: Vec<(Vec<String>, Option<usize>)> =
+        cells.par_iter().map(CellColumn::strings).collect();
+    // Candidate errors as (row, order within the row, error); the least is the one a
+    // row-by-row reading meets first: a row that cannot be read stops before its cells are
+    // looked at; then the id cell, the id's emptiness and uniqueness, and the wanted cells in
+    // order.
+    let mut first: Option<(usize, usize, Error)> = None;
+    let mut consider = |row: usize, order: usize, e: Error| {
+        if first
+            .as_ref()
+            .is_none_or(|(r, o, _)| (row, order) < (*r, *o))
+        {
+            first = Some((row, order, e));
+        }
+    };
+    if let Some(e) = stop {
+        consider(lines.len(), 0, e);
+    }
+    let names_of = std::iter::once(spec.id.as_str()).chain(wanted.iter().map(|(n, _)| n.as_str()));
+    for (k, (((_, bad), col), name)) in checked.iter().zip(&cells).zip(names_of).enumerate() {
+        if let Some(r) = *bad {
+            let order = if k == 0 { 1 } else { 2 + k };
+            consider(r, order, col.error(r, lines[r], name));
+        }
+    }
+    let ids = &checked[0].0;
+    let mut seen: HashMap<&str, u64, foldhash::fast::FixedState> =
+        HashMap::with_capacity_and_hasher(ids.len(), Default::default());
+    for (r, id) in ids.iter().enumerate() {
+        let line = lines[r];
+        let problem = if id.is_empty() {
+            Some("empty id".to_string())
+        } else {
+            seen.insert(id, line)
+                .map(|before| format!("duplicate id (first seen on line {before})"))
+        };
+        if let Some(msg) = problem {
+            consider(
+                r,
+                2,
+                Error::input(msg).with_line(line).with_column(&spec.id),
+            );
+            break;
+        }
+    }
+    drop(seen);
+    if let Some((_, _, e)) = first {
+        return Err(at(e));
+    }
+    if lines.is_empty() {
         return Err(at(Error::input("the table has a header but no records")));
     }
-    let columns = wanted.into_iter().map(|(n, _)| n).zip(cols).collect();
-    Ok(Table {
-        path: label.to_path_buf(),
-        ids,
-        columns,
-        lines,
-        bytes: bytes.len() as u64,
-        sha256: sha256_hex(bytes),
-    })
+    let mut checked = checked.into_iter().map(|(v, _)| v);
+    let ids = checked.next().unwrap_or_default();
+    let columns = wanted.into_iter().map(|(n, _)| n).zip(checked).collect();
+    Ok((ids, columns, lines))
 }
 
 /// Reads the next record into `record` and returns its line, or `None` at the end; a row
@@ -638,6 +750,34 @@ mod tests {
             "{e}"
         );
         assert!(e.contains("latin1"));
+    }
+
+    #[test]
+    fn first_error_in_row_order_wins() {
+        // A row-by-row reading meets the bad cell of line 3 before the duplicate of line 4,
+        // the duplicate id before a bad cell of the same row, and a bad cell before a later
+        // row of the wrong width.
+        assert_eq!(
+            err(b"id,name\n1,a\n2,caf\xE9\n1,b\n", &["name"]),
+            err(b"id,name\n1,a\n2,caf\xE9\n", &["name"])
+        );
+        assert!(err(b"id,name\n1,a\n2,caf\xE9\n1,b\n", &["name"]).starts_with("t.csv: line 3:"));
+        assert_eq!(
+            err(b"id,name\n1,a\n1,caf\xE9\n", &["name"]),
+            "t.csv: line 3: column id: duplicate id (first seen on line 2)"
+        );
+        assert!(err(b"id,name,x\n1,caf\xE9,1\n2,b\n", &["name"])
+            .starts_with("t.csv: line 2: column name:"));
+        assert_eq!(
+            err(b"id,name,x\n1,a,1\n2,b\n3,caf\xE9,1\n", &["name"]),
+            "t.csv: line 3: row has 2 cells but the header has 3"
+        );
+        assert!(err(b"id,name\n\xE9,a\n", &["name"]).starts_with("t.csv: line 2: column id: text"));
+        let long = format!("id,name\n1,{}\n", "x".repeat(MAX_CELL_BYTES + 1));
+        assert_eq!(
+            err(long.as_bytes(), &["name"]),
+            format!("t.csv: line 2: column name: value is {} bytes long, over the limit of {MAX_CELL_BYTES}", MAX_CELL_BYTES + 1)
+        );
     }
 
     #[test]

@@ -266,8 +266,9 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
     let mut warnings = Vec::new();
     let mut clock = Clock::new();
     progress.stage("reading");
-    let left = read_side(&config, true)?;
-    let right = read_side(&config, false)?;
+    // Both tables at once; the left table's error first when both fail.
+    let (left, right) = rayon::join(|| read_side(&config, true), || read_side(&config, false));
+    let (left, right) = (left?, right?);
     let config = drop_empty_fields(config, &left, &right, &mut warnings)?;
     let records = records::build(&left, &right, &config.field)?;
     clock.lap("reading", &mut timings);

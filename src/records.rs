@@ -99,33 +99,91 @@ impl Records {
 }
 
 /// Cleans, interns and parses every configured field of both tables (fields in parallel).
+///
+/// When several fields hold bad values, the error is that of the first field in config order.
 pub fn build(left: &Table, right: &Table, specs: &[FieldSpec]) -> Result<Records> {
-    let fields = specs
-        .par_iter()
-        .map(|spec| build_field(left, right, spec))
-        .collect::<Result<Vec<_>>>()?;
+    let (fields, (left_ids, right_ids)) = rayon::join(
+        || {
+            specs
+                .par_iter()
+                .map(|spec| build_field(left, right, spec))
+                .collect::<Vec<Result<FieldValues>>>()
+        },
+        || rayon::join(|| left.ids.clone(), || right.ids.clone()),
+    );
     Ok(Records {
-        left_ids: left.ids.clone(),
-        right_ids: right.ids.clone(),
-        fields,
+        left_ids,
+        right_ids,
+        fields: fields.into_iter().collect::<Result<Vec<_>>>()?,
     })
 }
 
+/// A fast hash with a fixed seed: the keys come from the user's own files, and a fixed seed
+/// keeps runs repeatable.
+type FastMap<K, V> = HashMap<K, V, foldhash::fast::FixedState>;
+
 fn build_field(left: &Table, right: &Table, spec: &FieldSpec) -> Result<FieldValues> {
     let how = spec.normalize();
-    let clean_all = |t: &Table, col: &str| -> Vec<String> {
-        t.values(col)
-            .par_iter()
-            .map(|v| text::clean(v, how, &spec.drop_tokens))
+    let lraw = left.values(spec.left_column());
+    let rraw = right.values(spec.right_column());
+    // The raw texts are interned first (left rows, then right rows) and each distinct one is
+    // cleaned once: names, dates and codes repeat, so this cleans a fraction of the cells. The
+    // cleaned dictionary is then built in raw first-seen order, which is the cleaned values'
+    // own first-seen order over the rows (a cleaned value first appears with the raw text that
+    // first gives it). The two sides are interned at the same time, then the right side's
+    // texts not seen on the left are appended in their right first-seen order.
+    let ((left_index, mut raw, lraw_ids), (_, right_raw, right_local)) =
+        rayon::join(|| intern_raw(&lraw), || intern_raw(&rraw));
+    let right_to_raw: Vec<u32> = right_raw
+        .iter()
+        .map(|v| match left_index.get(v) {
+            Some(&id) => id,
+            None => {
+                raw.push(v);
+                (raw.len() - 1) as u32
+            }
+        })
+        .collect();
+    drop(left_index);
+    let rraw_ids: Vec<u32> = right_local
+        .iter()
+        .map(|&r| right_to_raw[r as usize])
+        .collect();
+    let cleaned: Vec<String> = raw
+        .par_iter()
+        .with_min_len(256)
+        .map(|v| text::clean(v, how, &spec.drop_tokens))
+        .collect();
+    let mut index: FastMap<&str, u32> = FastMap::default();
+    let mut dict: Vec<String> = Vec::new();
+    let clean_id: Vec<u32> = cleaned
+        .iter()
+        .map(|c| {
+            if c.is_empty() {
+                return MISSING;
+            }
+            *index.entry(c.as_str()).or_insert_with(|| {
+                dict.push(c.clone());
+                (dict.len() - 1) as u32
+            })
+        })
+        .collect();
+    let mut left_counts = vec![0u32; dict.len()];
+    let mut right_counts = vec![0u32; dict.len()];
+    let ids = |raw_ids: &[u32], counts: &mut [u32]| -> Vec<u32> {
+        raw_ids
+            .iter()
+            .map(|&r| {
+                let id = clean_id[r as usize];
+                if id != MISSING {
+                    counts[id as usize] += 1;
+                }
+                id
+            })
             .collect()
     };
-    let lvals = clean_all(left, spec.left_column());
-    let rvals = clean_all(right, spec.right_column());
-    let mut index: HashMap<&str, u32> = HashMap::new();
-    let mut dict: Vec<String> = Vec::new();
-    let mut counts: Vec<[u32; 2]> = Vec::new();
-    let l = intern(&lvals, &mut index, &mut dict, &mut counts, 0);
-    let r = intern(&rvals, &mut index, &mut dict, &mut counts, 1);
+    let l = ids(&lraw_ids, &mut left_counts);
+    let r = ids(&rraw_ids, &mut right_counts);
     let mut fv = FieldValues {
         spec: spec.clone(),
         dict,
@@ -133,14 +191,18 @@ fn build_field(left: &Table, right: &Table, spec: &FieldSpec) -> Result<FieldVal
         numbers: Vec::new(),
         left: l,
         right: r,
-        left_counts: counts.iter().map(|c| c[0]).collect(),
-        right_counts: counts.iter().map(|c| c[1]).collect(),
+        left_counts,
+        right_counts,
     };
     match spec.method {
         Method::Date => {
             let order = DateOrder::from_config(spec.date_order.as_deref());
-            let parsed: Vec<Option<Date>> =
-                fv.dict.iter().map(|v| text::parse_date(v, order)).collect();
+            let parsed: Vec<Option<Date>> = fv
+                .dict
+                .par_iter()
+                .with_min_len(1024)
+                .map(|v| text::parse_date(v, order))
+                .collect();
             if let Some(bad) = parsed.iter().position(Option::is_none) {
                 return Err(parse_error(
                     &fv,
@@ -155,7 +217,8 @@ fn build_field(left: &Table, right: &Table, spec: &FieldSpec) -> Result<FieldVal
         Method::Number => {
             let parsed: Vec<Option<f64>> = fv
                 .dict
-                .iter()
+                .par_iter()
+                .with_min_len(1024)
                 .map(|v| v.parse::<f64>().ok().filter(|x| x.is_finite()))
                 .collect();
             if let Some(bad) = parsed.iter().position(Option::is_none) {
@@ -168,29 +231,20 @@ fn build_field(left: &Table, right: &Table, spec: &FieldSpec) -> Result<FieldVal
     Ok(fv)
 }
 
-/// Maps each value to its dictionary index (adding new ones), counting per side.
-fn intern<'a>(
-    vals: &'a [String],
-    index: &mut HashMap<&'a str, u32>,
-    dict: &mut Vec<String>,
-    counts: &mut Vec<[u32; 2]>,
-    side: usize,
-) -> Vec<u32> {
-    let mut out = Vec::with_capacity(vals.len());
-    for v in vals {
-        if v.is_empty() {
-            out.push(MISSING);
-            continue;
-        }
-        let id = *index.entry(v.as_str()).or_insert_with(|| {
-            dict.push(v.clone());
-            counts.push([0, 0]);
-            (dict.len() - 1) as u32
-        });
-        counts[id as usize][side] += 1;
-        out.push(id);
-    }
-    out
+/// Interns raw texts in first-seen order: the index, the distinct texts, and each value's id.
+fn intern_raw(vals: &[String]) -> (FastMap<&str, u32>, Vec<&str>, Vec<u32>) {
+    let mut index: FastMap<&str, u32> = FastMap::default();
+    let mut raw: Vec<&str> = Vec::new();
+    let ids = vals
+        .iter()
+        .map(|v| {
+            *index.entry(v.as_str()).or_insert_with(|| {
+                raw.push(v);
+                (raw.len() - 1) as u32
+            })
+        })
+        .collect();
+    (index, raw, ids)
 }
 
 fn parse_error(fv: &FieldValues, left: &Table, right: &Table, bad: usize, what: &str) -> Error {
@@ -206,5 +260,53 @@ fn parse_error(fv: &FieldValues, left: &Table, right: &Table, bad: usize, what: 
             .with_file(&right.path)
             .with_line(right.lines.get(j).copied().unwrap_or(0))
             .with_column(fv.spec.right_column())
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::config::Normalize;
+
+    #[test]
+    fn dictionary_in_cleaned_first_seen_order() {
+        // Raw texts that clean to one value share its id; ids follow the first row (left
+        // table first) that gives each cleaned value, as a row-by-row interning would.
+        let column = |vals: &[&str]| -> Table {
+            let mut columns = HashMap::new();
+            columns.insert(
+                "a".to_string(),
+                vals.iter().map(|v| v.to_string()).collect(),
+            );
+            Table {
+                path: "t".into(),
+                ids: (0..vals.len()).map(|i| i.to_string()).collect(),
+                columns,
+                lines: (0..vals.len() as u64).map(|i| i + 2).collect(),
+                bytes: 0,
+                sha256: String::new(),
+            }
+        };
+        let left = column(&["Bo", "", "ANN", "bo", "..."]);
+        let right = column(&["ann", "Cy", "Ann", "BO"]);
+        let spec = FieldSpec {
+            name: "a".into(),
+            left: None,
+            right: None,
+            method: Method::Exact,
+            bands: None,
+            relative: false,
+            frequency: false,
+            normalize: Some(Normalize::Name),
+            drop_tokens: vec![],
+            date_order: None,
+        };
+        let r = build(&left, &right, &[spec]).unwrap();
+        let f = &r.fields[0];
+        assert_eq!(f.dict, vec!["bo", "ann", "cy"]);
+        assert_eq!(f.left, vec![0, MISSING, 1, 0, MISSING]);
+        assert_eq!(f.right, vec![1, 2, 1, 0]);
+        assert_eq!(f.left_counts, vec![2, 1, 0]);
+        assert_eq!(f.right_counts, vec![1, 2, 1]);
     }
 }
