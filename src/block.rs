@@ -84,10 +84,59 @@ pub struct Pass {
 /// Cost: O(records + pairs) per pass for the keys and blocks, a parallel sort of each pass's
 /// pairs, O(P log P) for P pairs, and a merge of the sorted passes into the union.
 pub fn candidates(records: &Records, passes: &[Pass]) -> (Candidates, Vec<PassStats>) {
-    let outputs: Vec<(Vec<u64>, PassStats)> =
-        passes.par_iter().map(|p| run_pass(records, p)).collect();
-    let (lists, stats): (Vec<Vec<u64>>, Vec<PassStats>) = outputs.into_iter().unzip();
-    (merge(&lists, records.n_left()), stats)
+    plan(records, passes).candidates(records)
+}
+
+/// The passes' keys and blocks, before any pair is made: the pair count of every pass is
+/// known from its key counts (the sum over kept blocks of left x right records), so a run can
+/// say how many pairs, and how much memory, its blocking will take before it makes them.
+pub struct Plan {
+    passes: Vec<PassPlan>,
+}
+
+struct PassPlan {
+    pass: Pass,
+    keys: Keys,
+    stats: PassStats,
+    /// Window passes only: an upper bound of their pairs (records x window).
+    window_bound: u64,
+}
+
+/// Builds every pass's keys and counts its pairs (see [`Plan`]).
+pub fn plan(records: &Records, passes: &[Pass]) -> Plan {
+    Plan {
+        passes: passes.par_iter().map(|p| plan_pass(records, p)).collect(),
+    }
+}
+
+impl Plan {
+    /// Per pass: its pairs before the union (an upper bound for window passes).
+    pub fn pairs_per_pass(&self) -> Vec<u64> {
+        self.passes
+            .iter()
+            .map(|p| {
+                if p.pass.window.is_some() {
+                    p.window_bound
+                } else {
+                    p.stats.pairs
+                }
+            })
+            .collect()
+    }
+
+    /// An upper bound of the candidate pairs: the sum of the passes' pairs (a pair found by
+    /// two passes counts twice here, once in the candidates).
+    pub fn pairs_bound(&self) -> u64 {
+        self.pairs_per_pass().iter().sum()
+    }
+
+    /// Makes the pairs: the union of the passes, with their statistics.
+    pub fn candidates(self, records: &Records) -> (Candidates, Vec<PassStats>) {
+        let outputs: Vec<(Vec<u64>, PassStats)> =
+            self.passes.into_par_iter().map(emit_pass).collect();
+        let (lists, stats): (Vec<Vec<u64>>, Vec<PassStats>) = outputs.into_iter().unzip();
+        (merge(&lists, records.n_left()), stats)
+    }
 }
 
 /// The union of the passes' sorted pair lists, each pair once with the mask of the passes
@@ -351,23 +400,8 @@ fn sorted_neighbourhood(keys: &Keys, window: usize) -> Vec<u64> {
     pairs
 }
 
-fn run_pass(records: &Records, pass: &Pass) -> (Vec<u64>, PassStats) {
+fn plan_pass(records: &Records, pass: &Pass) -> PassPlan {
     let keys = build_keys(records, &pass.parts);
-    if let Some(w) = pass.window {
-        let pairs = sorted_neighbourhood(&keys, w);
-        let stats = PassStats {
-            name: pass.name.clone(),
-            pairs: pairs.len() as u64,
-            blocks: 0,
-            largest_block: 0,
-            pairs_in_large_blocks: 0,
-            skipped: Vec::new(),
-        };
-        return (pairs, stats);
-    }
-    let n_keys = keys.len();
-    let (ls, _) = group(&keys.left, n_keys);
-    let (rs, rm) = group(&keys.right, n_keys);
     let mut stats = PassStats {
         name: pass.name.clone(),
         pairs: 0,
@@ -376,11 +410,31 @@ fn run_pass(records: &Records, pass: &Pass) -> (Vec<u64>, PassStats) {
         pairs_in_large_blocks: 0,
         skipped: Vec::new(),
     };
-    let mut kept: Vec<usize> = Vec::new();
+    if let Some(w) = pass.window {
+        let with_key = keys
+            .left
+            .iter()
+            .chain(&keys.right)
+            .filter(|&&k| k != MISSING);
+        let window_bound = with_key.count() as u64 * w as u64;
+        return PassPlan {
+            pass: pass.clone(),
+            keys,
+            stats,
+            window_bound,
+        };
+    }
+    let n_keys = keys.len();
+    let mut nl = vec![0u64; n_keys];
+    let mut nr = vec![0u64; n_keys];
+    for &k in keys.left.iter().filter(|&&k| k != MISSING) {
+        nl[k as usize] += 1;
+    }
+    for &k in keys.right.iter().filter(|&&k| k != MISSING) {
+        nr[k as usize] += 1;
+    }
     for k in 0..n_keys {
-        let nl = (ls[k + 1] - ls[k]) as u64;
-        let nr = (rs[k + 1] - rs[k]) as u64;
-        let size = nl * nr;
+        let size = nl[k] * nr[k];
         if size == 0 {
             continue;
         }
@@ -394,14 +448,37 @@ fn run_pass(records: &Records, pass: &Pass) -> (Vec<u64>, PassStats) {
         if size > LARGE_BLOCK {
             stats.pairs_in_large_blocks += size;
         }
-        kept.push(k);
+    }
+    PassPlan {
+        pass: pass.clone(),
+        keys,
+        stats,
+        window_bound: 0,
+    }
+}
+
+fn emit_pass(plan: PassPlan) -> (Vec<u64>, PassStats) {
+    let PassPlan {
+        pass, keys, stats, ..
+    } = plan;
+    if let Some(w) = pass.window {
+        let pairs = sorted_neighbourhood(&keys, w);
+        let stats = PassStats {
+            pairs: pairs.len() as u64,
+            ..stats
+        };
+        return (pairs, stats);
+    }
+    let n_keys = keys.len();
+    let (ls, _) = group(&keys.left, n_keys);
+    let (rs, rm) = group(&keys.right, n_keys);
+    let mut keep = vec![false; n_keys];
+    for k in 0..n_keys {
+        let size = (ls[k + 1] - ls[k]) as u64 * (rs[k + 1] - rs[k]) as u64;
+        keep[k] = size > 0 && size <= pass.max_block_pairs;
     }
     // Each left record is in one block of the pass, whose right records are in increasing
     // order: going through the left records in order gives the pairs sorted, with no sort.
-    let mut keep = vec![false; n_keys];
-    for &k in &kept {
-        keep[k] = true;
-    }
     let pairs: Vec<u64> = keys
         .left
         .par_iter()
@@ -500,6 +577,13 @@ mod tests {
                 }
             }
             let got: Vec<(u32, u32, u16)> = (0..c.len()).map(|k| (c.left[k], c.right[k], c.passes[k])).collect();
+            // The plan's pair counts, made before any pair, are the brute-force counts of
+            // each pass's pairs.
+            let plan = plan(&recs, &passes);
+            let per_pass: Vec<u64> = (0..2)
+                .map(|p| want.iter().filter(|w| w.2 & (1 << p) != 0).count() as u64)
+                .collect();
+            prop_assert_eq!(plan.pairs_per_pass(), per_pass);
             prop_assert_eq!(got, want);
         }
     }

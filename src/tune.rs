@@ -69,6 +69,9 @@ pub struct SchemeResult {
     pub expected_correct: f64,
     /// Seconds to block, compare, match and forecast this scheme.
     pub seconds: f64,
+    /// Peak memory a `link` run with this scheme is estimated to take, in bytes (from its
+    /// passes' pair counts, before any pair is made; see [`crate::pipeline::MemoryEstimate`]).
+    pub memory_bytes: u64,
 }
 
 /// Settings of the evaluation.
@@ -433,7 +436,12 @@ pub fn evaluate(
         .iter()
         .map(|(name, passes)| {
             let clock = Instant::now();
-            let (cands, _) = block::candidates(&prep.records, passes);
+            let plan = block::plan(&prep.records, passes);
+            let memory = crate::pipeline::MemoryEstimate::new(
+                prep.left.bytes + prep.right.bytes,
+                plan.pairs_per_pass(),
+            );
+            let (cands, _) = plan.candidates(&prep.records);
             let kept: f64 = kept_per_record(&reference, &cands).iter().sum();
             let completeness = if mass > 0.0 {
                 (kept / mass).min(1.0)
@@ -465,6 +473,7 @@ pub fn evaluate(
             }
             let forecast_error = fc.map(|f| f.error_rate);
             SchemeResult {
+                memory_bytes: memory.peak_bytes,
                 scheme: name.clone(),
                 pairs: cands.len(),
                 d,
@@ -488,9 +497,10 @@ pub fn table_text(rows: &[SchemeResult]) -> String {
         .unwrap_or(6)
         .max(6);
     let mut t = format!(
-        "{:<w$}  {:>10}  {:>8}  {:>9}  {:>12}  {:>8}  {:>9}  {:>9}  {:>7}\n",
+        "{:<w$}  {:>10}  {:>8}  {:>8}  {:>9}  {:>12}  {:>8}  {:>9}  {:>9}  {:>7}\n",
         "scheme",
         "pairs",
+        "memory",
         "d",
         "with cand",
         "completeness",
@@ -501,9 +511,10 @@ pub fn table_text(rows: &[SchemeResult]) -> String {
     );
     for r in rows {
         t.push_str(&format!(
-            "{:<w$}  {:>10}  {:>8.3}  {:>8.1}%  {:>11.1}%  {:>8.4}  {:>9}  {:>8.1}%  {:>7.2}\n",
+            "{:<w$}  {:>10}  {:>8}  {:>8.3}  {:>8.1}%  {:>11.1}%  {:>8.4}  {:>9}  {:>8.1}%  {:>7.2}\n",
             r.scheme,
             r.pairs,
+            crate::pipeline::human_bytes(r.memory_bytes),
             r.d,
             r.left_with_candidate * 100.0,
             r.completeness * 100.0,

@@ -108,6 +108,19 @@ impl StageLines {
 }
 
 impl Progress for StageLines {
+    fn note(&self, text: &str) {
+        if self.quiet {
+            return;
+        }
+        if let Ok(cur) = self.current.lock() {
+            if let Some((bar, _, _)) = cur.as_ref() {
+                bar.println(text);
+                return;
+            }
+        }
+        eprintln!("{text}");
+    }
+
     fn stage(&self, name: &str) {
         if self.quiet {
             return;

@@ -150,6 +150,8 @@ pub struct Summary {
     pub right_records: usize,
     /// Candidate pairs after blocking.
     pub candidate_pairs: usize,
+    /// The pairs and peak memory estimated before blocking, from the passes' key counts.
+    pub memory_estimate: crate::pipeline::MemoryEstimate,
     /// d = estimated false candidates / sqrt(|L| |R|).
     pub mean_false_degree: f64,
     /// B = prod_k B_k.
@@ -442,6 +444,7 @@ fn summary(
         left_records: prep.records.n_left(),
         right_records: prep.records.n_right(),
         candidate_pairs: prep.cands.len(),
+        memory_estimate: prep.memory.clone(),
         mean_false_degree: a.mean_false_degree,
         bhattacharyya: a.bhattacharyya,
         margin: a.margin,
