@@ -96,7 +96,10 @@ pub fn fit(
         .filter(|s| config.model.per_pass && s.masks.len() > 1 && !known.any_fixed());
     let plain_fit = fit.clone();
     let mut fit = fit;
-    let mut link_prob: Vec<f64> = theta.iter().map(|&t| confidence::pairwise(t)).collect();
+    let mut link_prob: Vec<f64> = {
+        use rayon::prelude::*;
+        theta.par_iter().map(|&t| confidence::pairwise(t)).collect()
+    };
     let mut gamma: Vec<f64> = Vec::new();
     let mut link_log_odds: Vec<f64> = Vec::new();
     let mut pooled_link_log_odds: Option<f64> = None;

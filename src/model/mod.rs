@@ -413,13 +413,20 @@ pub struct Strata {
 impl Strata {
     /// Strata from each pair's pass mask.
     pub fn new(passes: &[u16]) -> Strata {
-        let mut masks: Vec<u16> = passes.to_vec();
-        masks.sort_unstable();
-        masks.dedup();
-        let of_pair = passes
-            .iter()
-            .map(|m| masks.partition_point(|x| x < m) as u32)
+        use rayon::prelude::*;
+        let mut seen = vec![false; 1 << 16];
+        for &m in passes {
+            seen[m as usize] = true;
+        }
+        let masks: Vec<u16> = (0..1usize << 16)
+            .filter(|&m| seen[m])
+            .map(|m| m as u16)
             .collect();
+        let mut index = vec![0u32; 1 << 16];
+        for (j, &m) in masks.iter().enumerate() {
+            index[m as usize] = j as u32;
+        }
+        let of_pair = passes.par_iter().map(|&m| index[m as usize]).collect();
         Strata {
             masks,
             of_pair,
