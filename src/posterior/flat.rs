@@ -327,8 +327,20 @@ pub(crate) fn run_with<W: Weights>(
     tolerance: f64,
     parallel: bool,
 ) -> Run {
+    let track = tolerance > 0.0;
     let mut iterations = 0;
     let mut converged = false;
+    // Records still to update: all at first; then, when measuring, only those whose log
+    // messages moved by more than the tolerance in their last update or whose other-side
+    // neighbour's did. A record left out has quiet inputs and had itself settled (its
+    // messages, not only its marginals: a message into a pair of marginal 0 still feeds the
+    // other record's sums). Late sweeps on a large graph then touch only the region still
+    // settling.
+    let mut active_l = vec![true; g.n_left()];
+    let mut active_r = vec![true; g.n_right()];
+    // Never updated counts as moved, so every record is updated at least once.
+    let mut left_moved = vec![f32::INFINITY; g.n_left()];
+    let mut right_moved = vec![f32::INFINITY; g.n_right()];
     while iterations < max_iterations {
         iterations += 1;
         let a = half_sweep(
@@ -339,10 +351,23 @@ pub(crate) fn run_with<W: Weights>(
             &msg.rm,
             &mut msg.lm,
             &mut msg.left_change,
+            &mut left_moved,
+            &active_l,
             damping,
             parallel,
-            tolerance > 0.0,
+            track,
         );
+        if track {
+            next_active(
+                &right_moved,
+                &left_moved,
+                &g.left_start,
+                &g.l2r,
+                &g.right_start,
+                tolerance,
+                &mut active_r,
+            );
+        }
         let b = half_sweep(
             &g.right_start,
             &g.right_chunks,
@@ -351,18 +376,62 @@ pub(crate) fn run_with<W: Weights>(
             &msg.lm,
             &mut msg.rm,
             &mut msg.right_change,
+            &mut right_moved,
+            &active_r,
             damping,
             parallel,
-            tolerance > 0.0,
+            track,
         );
-        if tolerance > 0.0 && a.max(b) <= tolerance {
+        if track && a.max(b) <= tolerance {
             converged = true;
             break;
+        }
+        if track {
+            next_active(
+                &left_moved,
+                &right_moved,
+                &g.right_start,
+                &g.r2l,
+                &g.left_start,
+                tolerance,
+                &mut active_l,
+            );
         }
     }
     Run {
         iterations,
         converged,
+    }
+}
+
+/// The records of one side to update next: those whose own last change exceeded the
+/// tolerance, and the neighbours of the other side's records that just did. `own` and
+/// `other` are the two sides' last changes; `other_start` and `cross` the other side's
+/// positions and their positions on this side, whose records `start` delimits.
+fn next_active(
+    own: &[f32],
+    other: &[f32],
+    other_start: &[u32],
+    cross: &[u32],
+    start: &[u32],
+    tolerance: f64,
+    active: &mut [bool],
+) {
+    let moved: Vec<usize> = (0..other.len())
+        .filter(|&r| other[r] as f64 > tolerance)
+        .collect();
+    if moved.len() * 8 > other.len() {
+        active.iter_mut().for_each(|a| *a = true);
+        return;
+    }
+    for (a, &c) in active.iter_mut().zip(own) {
+        *a = c as f64 > tolerance;
+    }
+    for r in moved {
+        for &pos in &cross[other_start[r] as usize..other_start[r + 1] as usize] {
+            let rec = start.partition_point(|&s| s <= pos) - 1;
+            active[rec] = true;
+        }
     }
 }
 
@@ -384,6 +453,8 @@ fn half_sweep<F: Fn(usize) -> f64 + Sync>(
     incoming: &[f64],
     out: &mut [f64],
     rec_change: &mut [f32],
+    rec_moved: &mut [f32],
+    active: &[bool],
     damping: f64,
     parallel: bool,
     track: bool,
@@ -391,13 +462,20 @@ fn half_sweep<F: Fn(usize) -> f64 + Sync>(
     let update = |records: std::ops::Range<usize>,
                   slice: &mut [f64],
                   changes: &mut [f32],
+                  moved: &mut [f32],
                   base: usize|
      -> f64 {
         let mut change = 0.0f64;
         let mut terms: Vec<f64> = Vec::new();
         let first = records.start;
         for r in records {
+            if !active[r] {
+                changes[r - first] = 0.0;
+                moved[r - first] = 0.0;
+                continue;
+            }
             let mut rec = 0.0f64;
+            let mut rec_m = 0.0f64;
             let (s, e) = (start[r] as usize, start[r + 1] as usize);
             terms.clear();
             let mut top = 0usize;
@@ -432,34 +510,45 @@ fn half_sweep<F: Fn(usize) -> f64 + Sync>(
                     // q (1 - q) = o / (1 + o)^2 <= min(o, 1 / o) for the odds o.
                     let o = x * next;
                     let f = if o < 1.0 { o } else { 1.0 / o };
-                    let d = (next - *slot).abs() / next.min(*slot) * f;
-                    rec = rec.max(d);
+                    let m = (next - *slot).abs() / next.min(*slot);
+                    rec = rec.max(m * f);
+                    rec_m = rec_m.max(m);
                 }
                 *slot = next;
             }
             changes[r - first] = rec as f32;
+            moved[r - first] = rec_m as f32;
             change = change.max(rec);
         }
         change
     };
     if !parallel {
         let records = start.len().saturating_sub(1);
-        return update(0..records, out, rec_change, 0);
+        return update(0..records, out, rec_change, rec_moved, 0);
     }
-    type Piece<'a> = (std::ops::Range<usize>, &'a mut [f64], &'a mut [f32], usize);
+    type Piece<'a> = (
+        std::ops::Range<usize>,
+        &'a mut [f64],
+        &'a mut [f32],
+        &'a mut [f32],
+        usize,
+    );
     let mut pieces: Vec<Piece> = Vec::with_capacity(chunk_bounds.len());
     let mut rest: &mut [f64] = out;
     let mut rest_c: &mut [f32] = rec_change;
+    let mut rest_m: &mut [f32] = rec_moved;
     for w in chunk_bounds.windows(2) {
         let (lo, hi) = (start[w[0]] as usize, start[w[1]] as usize);
         let (head, tail) = rest.split_at_mut(hi - lo);
         let (head_c, tail_c) = rest_c.split_at_mut(w[1] - w[0]);
-        pieces.push((w[0]..w[1], head, head_c, lo));
+        let (head_m, tail_m) = rest_m.split_at_mut(w[1] - w[0]);
+        pieces.push((w[0]..w[1], head, head_c, head_m, lo));
+        rest_m = tail_m;
         rest = tail;
         rest_c = tail_c;
     }
     pieces
         .into_par_iter()
-        .map(|(records, slice, changes, base)| update(records, slice, changes, base))
+        .map(|(records, slice, changes, moved, base)| update(records, slice, changes, moved, base))
         .reduce(|| 0.0, f64::max)
 }
