@@ -542,7 +542,15 @@ pub fn belief_propagation_raw(
     theta: &[f64],
     opts: &BpOptions,
 ) -> (Vec<f64>, usize, bool) {
-    bp_local(n_left, n_right, a, b, theta, opts, a.len() >= 50_000)
+    bp_local(
+        n_left,
+        n_right,
+        a,
+        b,
+        theta,
+        opts,
+        a.len() >= flat::PARALLEL_POSITIONS,
+    )
 }
 
 fn bp_local(

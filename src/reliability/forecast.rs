@@ -681,6 +681,26 @@ mod tests {
     }
 
     /// A random bipartite graph with a planted matching on pairs (i, i).
+    /// The whole graph with every planted pair counted, `n` records a side.
+    fn whole_graph(left: &[u32], right: &[u32], planted: &[usize], n: usize) -> Graph {
+        let mut g = Graph {
+            left: left.to_vec(),
+            right: right.to_vec(),
+            planted: planted.to_vec(),
+            counted: vec![true; planted.len()],
+            others: (0..left.len())
+                .filter(|i| planted.binary_search(i).is_err())
+                .collect(),
+            planted_of_left: vec![NONE; n],
+            planted_of_right: vec![NONE; n],
+        };
+        for (p, &i) in planted.iter().enumerate() {
+            g.planted_of_left[left[i] as usize] = p as u32;
+            g.planted_of_right[right[i] as usize] = p as u32;
+        }
+        g
+    }
+
     fn graph(n: usize, deg: usize, seed: u64) -> (Vec<u32>, Vec<u32>, Vec<usize>) {
         let mut rng = Rng::new(seed);
         let mut pairs: Vec<(u32, u32)> = Vec::new();
@@ -716,21 +736,7 @@ mod tests {
         let c = -4.0;
         let t = positive_tail(&m, &u, &w, c, MAX_TAIL).expect("tail");
         for r in 0..20u64 {
-            let mut g = Graph {
-                left: left.clone(),
-                right: right.clone(),
-                planted: planted.clone(),
-                counted: vec![true; planted.len()],
-                others: (0..left.len())
-                    .filter(|i| planted.binary_search(i).is_err())
-                    .collect(),
-                planted_of_left: vec![NONE; 3000],
-                planted_of_right: vec![NONE; 3000],
-            };
-            for (p, &i) in planted.iter().enumerate() {
-                g.planted_of_left[left[i] as usize] = p as u32;
-                g.planted_of_right[right[i] as usize] = p as u32;
-            }
+            let g = whole_graph(&left, &right, &planted, 3000);
             let draws = Draws::Tail(t.clone());
             let got = replicate(&g, &draws, &mut Rng::new(r));
             // The same draws again, written into a whole theta vector.
@@ -798,21 +804,7 @@ mod tests {
         let (mo, mm) = unpoint(&m_pts);
         let (uo, um) = unpoint(&u_pts);
         let c = -3.0;
-        let mut g = Graph {
-            left: left.clone(),
-            right: right.clone(),
-            planted: planted.clone(),
-            counted: vec![true; planted.len()],
-            others: (0..left.len())
-                .filter(|i| planted.binary_search(i).is_err())
-                .collect(),
-            planted_of_left: vec![NONE; 4000],
-            planted_of_right: vec![NONE; 4000],
-        };
-        for (p, &i) in planted.iter().enumerate() {
-            g.planted_of_left[left[i] as usize] = p as u32;
-            g.planted_of_right[right[i] as usize] = p as u32;
-        }
+        let g = whole_graph(&left, &right, &planted, 4000);
         let tail = Draws::Tail(positive_tail(&m_pts, &u_pts, &w, c, MAX_TAIL).expect("tail"));
         let whole = Draws::Whole {
             m: Sampler::new(&mo, &mm, &w),
