@@ -93,6 +93,11 @@ impl MemoryEstimate {
     }
 }
 
+/// The start of a warning that is an error-level finding: the run went on, but its results
+/// cannot be trusted until the user acts (for instance a field whose two sides never agree).
+/// The terminal and the report show these first and set apart.
+pub const SERIOUS_PREFIX: &str = "serious: ";
+
 /// Bytes in MB or GB, for messages.
 pub fn human_bytes(b: u64) -> String {
     if b >= 1_000_000_000 {

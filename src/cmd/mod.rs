@@ -148,7 +148,13 @@ pub fn print_warnings(warnings: &[String], quiet: bool) {
     if quiet {
         return;
     }
-    for w in warnings {
+    // Error-level findings first, then the rest in the order they were found.
+    let serious = |w: &&String| w.starts_with(dovetail::pipeline::SERIOUS_PREFIX);
+    for w in warnings.iter().filter(serious) {
+        let text = &w[dovetail::pipeline::SERIOUS_PREFIX.len()..];
+        eprintln!("warning (serious): {text}");
+    }
+    for w in warnings.iter().filter(|w| !serious(w)) {
         eprintln!("warning: {w}");
     }
 }
