@@ -180,8 +180,13 @@ pub fn fit(
     for d in &dependence {
         if d.is_strong() {
             warnings.push(format!(
-                "fields `{}` and `{}` move together among candidate pairs (phi {:.2} among true pairs, {:.2} among false pairs): the model counts their evidence twice; compare only one of them",
-                config.field[d.a].name, config.field[d.b].name, d.phi_m, d.phi_u
+                "fields `{}` and `{}` move together among candidate pairs (phi {:.2} among true pairs, from about {} pairs on the rarer side; {:.2} among false pairs, from about {}): the model counts their evidence twice; compare only one of them, or join them into one field (`left = \"a+b\"`)",
+                config.field[d.a].name,
+                config.field[d.b].name,
+                d.phi_m,
+                crate::pipeline::count_text(d.support_m),
+                d.phi_u,
+                crate::pipeline::count_text(d.support_u)
             ));
         }
     }

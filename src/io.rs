@@ -602,10 +602,35 @@ pub fn read_id_pairs(path: &Path) -> Result<Vec<(String, String, u64)>> {
 ///
 /// Dropping an `OutputSet` without [`OutputSet::commit`] removes every temporary file, so a
 /// failure midway leaves no partial outputs.
+///
+/// A set made with [`OutputSet::for_run`] also settles the folder when it commits (see
+/// [`crate::folder`]): earlier runs' outputs are removed and `outputs.json` lists the files.
 #[derive(Debug)]
 pub struct OutputSet {
     dir: PathBuf,
     pending: Vec<(PathBuf, PathBuf)>,
+    files: Vec<crate::folder::OutputFile>,
+    stamp: Option<crate::folder::Stamp>,
+}
+
+/// A writer that hashes and counts what passes through it.
+struct Hashing<W: Write> {
+    inner: W,
+    hasher: sha2::Sha256,
+    bytes: u64,
+}
+
+impl<W: Write> Write for Hashing<W> {
+    fn write(&mut self, buf: &[u8]) -> std::io::Result<usize> {
+        use sha2::Digest;
+        let n = self.inner.write(buf)?;
+        self.hasher.update(&buf[..n]);
+        self.bytes += n as u64;
+        Ok(n)
+    }
+    fn flush(&mut self) -> std::io::Result<()> {
+        self.inner.flush()
+    }
 }
 
 impl OutputSet {
@@ -617,7 +642,17 @@ impl OutputSet {
         Ok(OutputSet {
             dir: dir.to_path_buf(),
             pending: Vec::new(),
+            files: Vec::new(),
+            stamp: None,
         })
+    }
+
+    /// Starts the outputs of one command's run in `dir`: on commit, the folder keeps only
+    /// what belongs with them (see [`crate::folder`]).
+    pub fn for_run(dir: &Path, stamp: crate::folder::Stamp) -> Result<OutputSet> {
+        let mut out = OutputSet::new(dir)?;
+        out.stamp = Some(stamp);
+        Ok(out)
     }
 
     /// The output folder.
@@ -640,10 +675,26 @@ impl OutputSet {
             .with_file(&target)
         };
         let file = File::create(&tmp).map_err(|e| fail(e, &tmp))?;
-        let mut w = BufWriter::new(file);
+        let mut w = Hashing {
+            inner: BufWriter::new(file),
+            hasher: sha2::Digest::new(),
+            bytes: 0,
+        };
         fill(&mut w).map_err(|e| fail(e, &tmp))?;
-        let file = w.into_inner().map_err(|e| fail(e.into_error(), &tmp))?;
+        let Hashing {
+            inner,
+            hasher,
+            bytes,
+        } = w;
+        let file = inner.into_inner().map_err(|e| fail(e.into_error(), &tmp))?;
         file.sync_all().map_err(|e| fail(e, &tmp))?;
+        let digest = sha2::Digest::finalize(hasher);
+        self.files.push(crate::folder::OutputFile {
+            name: name.to_string(),
+            command: self.stamp.as_ref().map_or("", |s| s.command).to_string(),
+            bytes,
+            sha256: digest.iter().map(|b| format!("{b:02x}")).collect(),
+        });
         self.pending.push((tmp, target));
         Ok(())
     }
@@ -674,6 +725,9 @@ impl OutputSet {
                 .with_file(target));
             }
             done.push(target.clone());
+        }
+        if let Some(stamp) = &self.stamp {
+            crate::folder::settle(&self.dir, stamp, std::mem::take(&mut self.files))?;
         }
         Ok(done)
     }

@@ -5,7 +5,7 @@
 //! [`io`] reads tables → [`records`] cleans and interns values → [`block`] builds candidate
 //! pairs → [`compare`] gives agreement patterns → [`fit`] fits m, u and p ([`model`]: EM and
 //! the model check; [`posterior`]: the one-to-one posterior) → [`matching`] finds the optimum one-to-one linkage → [`reliability`] assesses feasibility and
-//! scores confidence → [`report`] writes outputs. [`pipeline`] runs them in order; the binary
+//! scores confidence → [`report`] writes outputs; [`score`] checks a finished run against known pairs. [`pipeline`] runs them in order; the binary
 //! only parses arguments and prints.
 
 pub mod block;
@@ -14,6 +14,7 @@ pub mod config;
 pub mod duplicates;
 pub mod error;
 pub mod fit;
+pub mod folder;
 pub mod io;
 pub mod matching;
 pub mod model;
@@ -23,6 +24,7 @@ pub mod records;
 pub mod reliability;
 pub mod report;
 pub mod rng;
+pub mod score;
 pub mod synth;
 pub mod text;
 pub mod tune;

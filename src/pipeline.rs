@@ -98,6 +98,20 @@ impl MemoryEstimate {
 /// The terminal and the report show these first and set apart.
 pub const SERIOUS_PREFIX: &str = "serious: ";
 
+/// A count for messages: rounded to a whole number, thousands separated by commas
+/// ("3,412").
+pub fn count_text(x: f64) -> String {
+    let digits = format!("{:.0}", x.max(0.0));
+    let mut out = String::new();
+    for (i, c) in digits.chars().enumerate() {
+        if i > 0 && (digits.len() - i) % 3 == 0 {
+            out.push(',');
+        }
+        out.push(c);
+    }
+    out
+}
+
 /// Bytes in MB or GB, for messages.
 pub fn human_bytes(b: u64) -> String {
     if b >= 1_000_000_000 {
@@ -931,5 +945,13 @@ mod tests {
         assert_eq!(cutoff_for_precision(&c, 0.8), 0.6);
         assert_eq!(cutoff_for_precision(&c, 0.999), 1.0);
         assert_eq!(cutoff_for_precision(&c, 0.5), 0.5);
+    }
+
+    #[test]
+    fn counts_in_words() {
+        assert_eq!(count_text(0.4), "0");
+        assert_eq!(count_text(999.0), "999");
+        assert_eq!(count_text(3411.6), "3,412");
+        assert_eq!(count_text(1_234_567.0), "1,234,567");
     }
 }

@@ -7,12 +7,16 @@ mod common;
 
 #[path = "it/bad_input.rs"]
 mod bad_input;
+#[path = "it/getting_started.rs"]
+mod getting_started;
 #[path = "it/honesty.rs"]
 mod honesty;
 #[path = "it/link_sample.rs"]
 mod link_sample;
 #[path = "it/match_cmd.rs"]
 mod match_cmd;
+#[path = "it/outputs_folder.rs"]
+mod outputs_folder;
 #[path = "it/reliability_synth.rs"]
 mod reliability_synth;
 #[path = "it/report_html.rs"]
@@ -21,5 +25,7 @@ mod report_html;
 mod robustness;
 #[path = "it/scenarios.rs"]
 mod scenarios;
+#[path = "it/score_cmd.rs"]
+mod score_cmd;
 #[path = "it/tune_synth.rs"]
 mod tune_synth;

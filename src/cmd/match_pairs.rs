@@ -41,7 +41,11 @@ pub fn run(args: Args) -> Result<ExitCode> {
     let clock = std::time::Instant::now();
     let m = matching::max_weight_matching(p.left_ids.len(), &p.left, &p.right, &w);
     let solve_secs = clock.elapsed().as_secs_f64();
-    let mut out = OutputSet::new(&args.out)?;
+    let stamp = dovetail::folder::Stamp {
+        command: "match",
+        fingerprint: None,
+    };
+    let mut out = OutputSet::for_run(&args.out, stamp)?;
     out.write("links.csv", |f| {
         writeln!(f, "left_id,right_id,weight")?;
         let mut wr = csv::Writer::from_writer(f);

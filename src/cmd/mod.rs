@@ -4,6 +4,7 @@
 mod assess;
 mod link;
 mod match_pairs;
+mod score;
 mod synth;
 mod tune;
 
@@ -27,6 +28,7 @@ enum Command {
     Link(link::Args),
     Assess(assess::Args),
     Match(match_pairs::Args),
+    Score(score::Args),
     Synth(synth::Args),
     Tune(tune::Args),
 }
@@ -37,6 +39,7 @@ pub fn run(cli: Cli) -> Result<ExitCode> {
         Command::Link(a) => link::run(a),
         Command::Assess(a) => assess::run(a),
         Command::Match(a) => match_pairs::run(a),
+        Command::Score(a) => score::run(a),
         Command::Synth(a) => synth::run(a),
         Command::Tune(a) => tune::run(a),
     }

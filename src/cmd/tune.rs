@@ -55,7 +55,7 @@ pub fn run(args: Args) -> Result<ExitCode> {
     if !args.run.quiet {
         print!("{}", tune::table_text(&rows));
     }
-    let mut out = OutputSet::new(&args.run.out)?;
+    let mut out = OutputSet::for_run(&args.run.out, dovetail::folder::stamp_of(&prep, "tune"))?;
     out.write("tune.csv", |w| {
         let mut c = csv::Writer::from_writer(w);
         for r in &rows {

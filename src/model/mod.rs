@@ -812,6 +812,11 @@ pub struct Dependence {
     pub phi_m: f64,
     /// The same among false pairs.
     pub phi_u: f64,
+    /// The expected number of true pairs on the rarer side of the 2×2 table behind `phi_m`
+    /// (the smallest of its four margins): how many pairs the coefficient rests on.
+    pub support_m: f64,
+    /// The same for `phi_u` among false pairs.
+    pub support_u: f64,
 }
 
 /// A pair of fields with |phi| above this in both classes is reported as strongly dependent.
@@ -824,10 +829,27 @@ pub const STRONG_DEPENDENCE: f64 = 0.25;
 /// one (street and postcode among households).
 pub const NEARLY_ONE_FIELD: f64 = 0.75;
 
+/// A class's phi counts only when its 2×2 table has at least this many (expected) pairs on
+/// the rarer side of each field: a coefficient of 1.00 from five same-household pairs says
+/// nothing about the extracts. 50 is our choice, the usual order of a cell count for a
+/// stable correlation (common practice: a few dozen per cell).
+pub const MIN_DEPENDENCE_SUPPORT: f64 = 50.0;
+
 impl Dependence {
-    /// Strong in both classes, or nearly one field in either.
+    /// Strong in both classes, or nearly one field in either, counting only the classes
+    /// with enough pairs behind them (see [`MIN_DEPENDENCE_SUPPORT`]).
     pub fn is_strong(&self) -> bool {
-        let (m, u) = (self.phi_m.abs(), self.phi_u.abs());
+        let sized = |phi: f64, support: f64| {
+            if support >= MIN_DEPENDENCE_SUPPORT {
+                phi.abs()
+            } else {
+                0.0
+            }
+        };
+        let (m, u) = (
+            sized(self.phi_m, self.support_m),
+            sized(self.phi_u, self.support_u),
+        );
         m.min(u) > STRONG_DEPENDENCE || m.max(u) > NEARLY_ONE_FIELD
     }
 }
@@ -840,7 +862,8 @@ impl Dependence {
 /// postcode, street and postcode) give large values, and their evidence is counted twice.
 pub fn dependence(pc: &PatternCounts, gamma: &[f64]) -> Vec<Dependence> {
     let k = pc.levels.len();
-    let phi = |a: usize, b: usize, w: &dyn Fn(usize) -> f64| -> f64 {
+    // Phi and the smallest margin of the 2×2 table it comes from.
+    let phi = |a: usize, b: usize, w: &dyn Fn(usize) -> f64| -> (f64, f64) {
         let mut t = [[0.0f64; 2]; 2];
         for (g, pat) in pc.patterns.iter().enumerate() {
             let (x, y) = (pat[a], pat[b]);
@@ -852,10 +875,11 @@ pub fn dependence(pc: &PatternCounts, gamma: &[f64]) -> Vec<Dependence> {
         let (r1, r0) = (t[1][0] + t[1][1], t[0][0] + t[0][1]);
         let (c1, c0) = (t[0][1] + t[1][1], t[0][0] + t[1][0]);
         let den = (r1 * r0 * c1 * c0).sqrt();
+        let support = r1.min(r0).min(c1).min(c0);
         if den > 0.0 {
-            (t[1][1] * t[0][0] - t[1][0] * t[0][1]) / den
+            ((t[1][1] * t[0][0] - t[1][0] * t[0][1]) / den, support)
         } else {
-            0.0
+            (0.0, support)
         }
     };
     let wm = |g: usize| pc.counts[g] * gamma[g];
@@ -863,11 +887,15 @@ pub fn dependence(pc: &PatternCounts, gamma: &[f64]) -> Vec<Dependence> {
     let mut out = Vec::new();
     for a in 0..k {
         for b in a + 1..k {
+            let (phi_m, support_m) = phi(a, b, &wm);
+            let (phi_u, support_u) = phi(a, b, &wu);
             out.push(Dependence {
                 a,
                 b,
-                phi_m: phi(a, b, &wm),
-                phi_u: phi(a, b, &wu),
+                phi_m,
+                phi_u,
+                support_m,
+                support_u,
             });
         }
     }
@@ -1323,6 +1351,36 @@ pub(crate) mod tests {
         let d = dependence(&pc, &zero);
         assert!(d[0].phi_u > 0.7, "phi {}", d[0].phi_u);
         assert!(d[1].phi_u.abs() < 0.03 && d[2].phi_u.abs() < 0.03);
+        // Field 0 agrees in about 10% of the 100,000 pairs: the rarer side holds about
+        // 10,000 of them, and the dependence is strong.
+        assert!(
+            (d[0].support_u - 10_000.0).abs() < 500.0,
+            "{}",
+            d[0].support_u
+        );
+        assert!(d[0].is_strong());
+    }
+
+    #[test]
+    fn dependence_needs_pairs_behind_it() {
+        // Five pairs agreeing on both fields among 10,000 that agree on neither: phi is 1.00
+        // exactly (Pearson's correlation of two 0/1 variables; common practice), but it rests
+        // on five pairs and is not called strong.
+        let pc = PatternCounts {
+            levels: vec![2, 2],
+            patterns: vec![vec![0, 0], vec![1, 1]],
+            counts: vec![5.0, 10_000.0],
+        };
+        let d = dependence(&pc, &[0.0, 0.0]);
+        assert!((d[0].phi_u - 1.0).abs() < 1e-12, "{}", d[0].phi_u);
+        assert_eq!(d[0].support_u, 5.0);
+        assert!(!d[0].is_strong());
+        // The same proportions with 100 times the pairs are strong.
+        let pc = PatternCounts {
+            counts: vec![500.0, 1_000_000.0],
+            ..pc
+        };
+        assert!(dependence(&pc, &[0.0, 0.0])[0].is_strong());
     }
 
     #[test]

@@ -94,7 +94,12 @@ pub struct DependenceSummary {
     pub phi_m: f64,
     /// Phi among false pairs.
     pub phi_u: f64,
-    /// True when both are above 0.25 in size, or either above 0.75.
+    /// Expected true pairs on the rarer side of the table behind `phi_m`.
+    pub support_m: f64,
+    /// Expected false pairs on the rarer side of the table behind `phi_u`.
+    pub support_u: f64,
+    /// True when both are above 0.25 in size, or either above 0.75, counting only a class
+    /// with at least 50 pairs on the rarer side.
     pub strong: bool,
 }
 
@@ -489,6 +494,8 @@ fn summary(
                 b: prep.config.field[d.b].name.clone(),
                 phi_m: d.phi_m,
                 phi_u: d.phi_u,
+                support_m: d.support_m,
+                support_u: d.support_u,
                 strong: d.is_strong(),
             })
             .collect(),
@@ -507,13 +514,18 @@ fn write_summary(out: &mut OutputSet, s: &Summary) -> Result<()> {
 
 /// Writes summary.json for `assess`.
 pub fn write_assessment(dir: &Path, prep: &Prepared, a: &Assessment) -> Result<Vec<PathBuf>> {
-    let mut out = OutputSet::new(dir)?;
+    let mut out = OutputSet::for_run(dir, crate::folder::stamp_of(prep, "assess"))?;
     write_summary(&mut out, &summary(prep, a, None, "assess"))?;
     out.commit()
 }
 
-/// The table of an earlier `dovetail tune --out DIR`, when DIR/tune.csv is there and reads.
-fn read_tune(dir: &Path) -> Option<Vec<html::TuneRow>> {
+/// The table of an earlier `dovetail tune --out DIR`, when DIR/tune.csv is there, reads, and
+/// came from the same config and inputs as this run.
+fn read_tune(dir: &Path, prep: &Prepared) -> Option<Vec<html::TuneRow>> {
+    let stamp = crate::folder::stamp_of(prep, "link");
+    if !crate::folder::file_matches(dir, "tune.csv", stamp.fingerprint.as_deref()?) {
+        return None;
+    }
     let mut r = csv::Reader::from_path(dir.join("tune.csv")).ok()?;
     r.deserialize()
         .collect::<std::result::Result<Vec<html::TuneRow>, _>>()
@@ -545,7 +557,7 @@ fn unlinked_reason(has_candidate: bool, in_optimum: bool) -> &'static str {
 pub fn write_linkage(dir: &Path, prep: &Prepared, l: &Linkage) -> Result<Vec<PathBuf>> {
     let n_pairs = prep.cands.len();
     let names: Vec<&str> = prep.config.field.iter().map(|f| f.name.as_str()).collect();
-    let mut out = OutputSet::new(dir)?;
+    let mut out = OutputSet::for_run(dir, crate::folder::stamp_of(prep, "link"))?;
 
     out.write("links.csv", |w| {
         let mut c = csv_writer(w);
@@ -695,7 +707,7 @@ pub fn write_linkage(dir: &Path, prep: &Prepared, l: &Linkage) -> Result<Vec<Pat
         c.flush()
     })?;
 
-    let tune = read_tune(dir);
+    let tune = read_tune(dir, prep);
     let page = html::page(prep, l, &review, tune.as_deref());
     out.write("report.html", |w| w.write_all(page.as_bytes()))?;
     write_summary(&mut out, &summary(prep, &l.assessment, Some(l), "link"))?;
