@@ -1,6 +1,7 @@
 //! Blocking: the sparse bipartite graph of candidate pairs.
 //!
-//! In: [`Records`] and the passes (each a list of key parts). Out: [`Candidates`], the union
+//! In: [`Records`] and the passes (each a list of key parts, each reading a field or a
+//! key-only column). Out: [`Candidates`], the union
 //! of the pairs that share a key in at least one pass, each pair once, sorted by (left, right),
 //! with a bit mask of the passes that found it. A block that would produce more pairs than the
 //! pass's cap is skipped with a warning naming the pass, the key and its size, never silently.
@@ -279,7 +280,7 @@ fn build_keys(records: &Records, parts: &[KeyPart]) -> Keys {
     let mut part_ids: Vec<Vec<u32>> = Vec::with_capacity(parts.len());
     let mut part_text: Vec<Vec<String>> = Vec::with_capacity(parts.len());
     for part in parts {
-        let fv = &records.fields[part.field];
+        let fv = records.key_values(part.source);
         let mut seen: FastMap<String, u32> = FastMap::default();
         let mut texts = Vec::new();
         let transformed: Vec<String> = (0..fv.dict.len() as u32)
@@ -331,11 +332,11 @@ fn build_keys(records: &Records, parts: &[KeyPart]) -> Keys {
     };
     let left_side: Vec<&[u32]> = parts
         .iter()
-        .map(|p| records.fields[p.field].left.as_slice())
+        .map(|p| records.key_values(p.source).left.as_slice())
         .collect();
     let right_side: Vec<&[u32]> = parts
         .iter()
-        .map(|p| records.fields[p.field].right.as_slice())
+        .map(|p| records.key_values(p.source).right.as_slice())
         .collect();
     let left = key_of(&left_side);
     let right = key_of(&right_side);
@@ -499,7 +500,7 @@ fn emit_pass(plan: PassPlan) -> (Vec<u64>, PassStats) {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::config::{FieldSpec, Method};
+    use crate::config::{FieldSpec, KeySource};
     use crate::io::Table;
     use proptest::prelude::*;
 
@@ -517,6 +518,7 @@ mod tests {
             path: name.into(),
             ids: (0..vals.len()).map(|i| format!("{name}{i}")).collect(),
             columns,
+            header: vec!["a".into(), "b".into()],
             lines: (0..vals.len() as u64).map(|i| i + 2).collect(),
             bytes: 0,
             sha256: String::new(),
@@ -525,16 +527,8 @@ mod tests {
 
     fn spec(name: &str) -> FieldSpec {
         FieldSpec {
-            name: name.into(),
-            left: None,
-            right: None,
-            method: Method::Exact,
-            bands: None,
-            relative: false,
-            frequency: false,
             normalize: None,
-            drop_tokens: vec![],
-            date_order: None,
+            ..FieldSpec::key_column(name)
         }
     }
 
@@ -543,7 +537,10 @@ mod tests {
             name: "p".into(),
             parts: parts
                 .iter()
-                .map(|&(field, transform)| KeyPart { field, transform })
+                .map(|&(field, transform)| KeyPart {
+                    source: KeySource::Field(field),
+                    transform,
+                })
                 .collect(),
             max_block_pairs: DEFAULT_MAX_BLOCK_PAIRS,
             window: None,
@@ -563,7 +560,7 @@ mod tests {
             let rv: Vec<(&str, &str)> = r.iter().map(|&(a, b)| (names[a as usize], ["x", "y", ""][b as usize])).collect();
             let lt = table("l", &lv);
             let rt = table("r", &rv);
-            let recs = crate::records::build(&lt, &rt, &[spec("a"), spec("b")]).unwrap();
+            let recs = crate::records::build(&lt, &rt, &[spec("a"), spec("b")], &[]).unwrap();
             let passes = [pass(&[(0, Transform::First(1)), (1, Transform::Exact)]), pass(&[(0, Transform::Exact)])];
             let (c, _) = candidates(&recs, &passes);
             let mut want = Vec::new();
@@ -601,7 +598,7 @@ mod tests {
             let names = ["", "ab", "ac", "bd", "ba", "ca"];
             let lv: Vec<(&str, &str)> = l.iter().map(|&a| (names[a as usize], "x")).collect();
             let rv: Vec<(&str, &str)> = r.iter().map(|&a| (names[a as usize], "x")).collect();
-            let recs = crate::records::build(&table("l", &lv), &table("r", &rv), &[spec("a"), spec("b")]).unwrap();
+            let recs = crate::records::build(&table("l", &lv), &table("r", &rv), &[spec("a"), spec("b")], &[]).unwrap();
             let mut p = pass(&[(0, Transform::Exact)]);
             p.window = Some(w);
             let (c, _) = candidates(&recs, &[p]);
@@ -629,9 +626,13 @@ mod tests {
     fn giant_block_is_skipped_and_reported() {
         let lv = vec![("ab", "x"); 30];
         let rv = vec![("ab", "x"); 30];
-        let recs =
-            crate::records::build(&table("l", &lv), &table("r", &rv), &[spec("a"), spec("b")])
-                .unwrap();
+        let recs = crate::records::build(
+            &table("l", &lv),
+            &table("r", &rv),
+            &[spec("a"), spec("b")],
+            &[],
+        )
+        .unwrap();
         let mut p = pass(&[(0, Transform::Exact)]);
         p.max_block_pairs = 100;
         let (c, stats) = candidates(&recs, &[p]);

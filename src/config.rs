@@ -5,7 +5,9 @@
 //! suggested; every error names the key. This module never reads a table.
 
 use crate::error::{Error, Result};
+use crate::text::{self, DateOrder};
 use serde::{Deserialize, Serialize};
+use std::collections::{BTreeMap, HashMap};
 use std::path::{Path, PathBuf};
 
 /// A whole run: two tables, the fields compared, the blocking passes and the decision settings.
@@ -37,6 +39,11 @@ pub struct Config {
     /// The folder the config file is in; relative paths are taken from here.
     #[serde(skip)]
     pub base_dir: PathBuf,
+    /// The names in pass keys (of [[block]] and [[scheme]]) that no [[field]] defines, in
+    /// order of first use: columns of both tables read for blocking only, never compared.
+    /// Set by [`Config::from_text`]; whether the tables have them is checked when reading.
+    #[serde(skip)]
+    pub key_columns: Vec<String>,
 }
 
 /// Where a table is and which column holds its record id.
@@ -123,6 +130,25 @@ pub struct FieldSpec {
     /// "dmy" or "mdy".
     #[serde(default)]
     pub date_order: Option<String>,
+    /// `date_order` for the left table only.
+    #[serde(default)]
+    pub left_date_order: Option<String>,
+    /// `date_order` for the right table only.
+    #[serde(default)]
+    pub right_date_order: Option<String>,
+    /// Value map for the left table's values, e.g. `{ "1" = "M", "2" = "F", "9" = "" }`:
+    /// keys and replacements are matched after the field's cleaning, a replacement of ""
+    /// makes the value missing; applied before comparing and blocking (for dates and
+    /// numbers, before parsing).
+    #[serde(default, skip_serializing_if = "BTreeMap::is_empty")]
+    pub left_recode: BTreeMap<String, String>,
+    /// Value map for the right table's values (see `left_recode`).
+    #[serde(default, skip_serializing_if = "BTreeMap::is_empty")]
+    pub right_recode: BTreeMap<String, String>,
+    /// Dates and numbers that do not parse: "missing" (default: taken as missing, counted
+    /// and warned about) or "stop" (the run stops with the file, line and column).
+    #[serde(default)]
+    pub unparsed: Option<String>,
 }
 
 /// One blocking pass.
@@ -324,12 +350,22 @@ pub enum Transform {
     Nysiis,
 }
 
-/// One part of a blocking key: a field index and a transform.
+/// Where a blocking key part takes its values from.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum KeySource {
+    /// A compared field: an index into [`Config::field`].
+    Field(usize),
+    /// A column of both tables that is only used for blocking: an index into
+    /// [`Config::key_columns`].
+    Column(usize),
+}
+
+/// One part of a blocking key: where its values come from and a transform.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub struct KeyPart {
-    /// Index into [`Config::field`].
-    pub field: usize,
-    /// The transform applied to the field's cleaned value.
+    /// The field or key-only column.
+    pub source: KeySource,
+    /// The transform applied to the cleaned value.
     pub transform: Transform,
 }
 
@@ -349,6 +385,11 @@ const FIELD_KEYS: &[&str] = &[
     "normalize",
     "drop_tokens",
     "date_order",
+    "left_date_order",
+    "right_date_order",
+    "left_recode",
+    "right_recode",
+    "unparsed",
 ];
 const BLOCK_KEYS: &[&str] = &["keys", "name", "max_block_pairs", "window"];
 const LINK_KEYS: &[&str] = &[
@@ -374,6 +415,19 @@ const ASSESS_KEYS: &[&str] = &[
     "replicates",
     "seed",
 ];
+/// Every key the config accepts, by the table that holds it (`field` for `[[field]]`, and
+/// so on): the contract the example configs and the README document.
+pub const ALL_KEYS: &[(&str, &[&str])] = &[
+    ("", TOP_KEYS),
+    ("left/right", TABLE_KEYS),
+    ("field", FIELD_KEYS),
+    ("block", BLOCK_KEYS),
+    ("scheme", SCHEME_KEYS),
+    ("link", LINK_KEYS),
+    ("model", MODEL_KEYS),
+    ("assess", ASSESS_KEYS),
+];
+
 const METHODS: &[&str] = &["exact", "jaro-winkler", "levenshtein", "date", "number"];
 const TRANSFORMS: &[&str] = &[
     "exact",
@@ -511,6 +565,7 @@ impl Config {
         check_keys(&doc)?;
         let mut cfg: Config = toml::from_str(text).map_err(|e| toml_error(&e, text))?;
         cfg.base_dir = base_dir.to_path_buf();
+        cfg.key_columns = cfg.find_key_columns();
         cfg.validate()?;
         Ok(cfg)
     }
@@ -527,6 +582,47 @@ impl Config {
     /// Index of the field with this name.
     pub fn field_index(&self, name: &str) -> Option<usize> {
         self.field.iter().position(|f| f.name == name)
+    }
+
+    /// The names used by pass keys that are not fields (see [`Config::key_columns`]).
+    fn find_key_columns(&self) -> Vec<String> {
+        let mut found: Vec<String> = Vec::new();
+        let blocks = self
+            .block
+            .iter()
+            .chain(self.scheme.iter().flat_map(|s| &s.block));
+        for key in blocks.flat_map(|b| &b.keys) {
+            let name = key_name(key);
+            if !name.is_empty()
+                && self.field_index(name).is_none()
+                && !found.iter().any(|c| c == name)
+            {
+                found.push(name.to_string());
+            }
+        }
+        found
+    }
+
+    /// The first pass key naming `name` ([[block]] first, then [[scheme]]), with where it is
+    /// (e.g. `block[2].keys`).
+    pub fn first_key_naming(&self, name: &str) -> Option<(String, String)> {
+        let blocks = self
+            .block
+            .iter()
+            .enumerate()
+            .map(|(i, b)| (format!("block[{}].keys", i + 1), b));
+        let schemes = self.scheme.iter().enumerate().flat_map(|(i, sc)| {
+            sc.block
+                .iter()
+                .enumerate()
+                .map(move |(j, b)| (format!("scheme[{}].block[{}].keys", i + 1, j + 1), b))
+        });
+        blocks.chain(schemes).find_map(|(at, b)| {
+            b.keys
+                .iter()
+                .find(|k| key_name(k) == name)
+                .map(|k| (at, k.clone()))
+        })
     }
 
     /// Parses every pass's keys into field indices and transforms.
@@ -554,7 +650,14 @@ impl Config {
             Some((n, t)) => (n, t),
             None => (key, "exact"),
         };
-        let field = self.field_index(name).ok_or_else(|| {
+        let column = || {
+            self.key_columns
+                .iter()
+                .position(|c| c == name)
+                .map(KeySource::Column)
+        };
+        let source = self.field_index(name).map(KeySource::Field).or_else(column);
+        let source = source.ok_or_else(|| {
             let names: Vec<&str> = self.field.iter().map(|f| f.name.as_str()).collect();
             let hint = nearest(name, &names)
                 .map(|n| format!("; did you mean `{n}`?"))
@@ -571,7 +674,7 @@ impl Config {
                 "`{at}`: unknown transform `{transform}` in key `{key}`{hint}"
             ))
         })?;
-        Ok(KeyPart { field, transform })
+        Ok(KeyPart { source, transform })
     }
 
     fn validate(&self) -> Result<()> {
@@ -599,10 +702,27 @@ impl Config {
             if let Some(bands) = &f.bands {
                 check_bands(f.method, bands, &format!("{at}.bands"))?;
             }
-            if let Some(order) = &f.date_order {
-                if !["ymd", "dmy", "mdy"].contains(&order.as_str()) {
+            for (key, order) in [
+                ("date_order", &f.date_order),
+                ("left_date_order", &f.left_date_order),
+                ("right_date_order", &f.right_date_order),
+            ] {
+                if let Some(order) = order {
+                    if !["ymd", "dmy", "mdy"].contains(&order.as_str()) {
+                        return Err(Error::config(format!(
+                            "`{at}.{key}`: `{order}` is not one of ymd, dmy, mdy"
+                        )));
+                    }
+                }
+            }
+            for (key, left) in [("left_recode", true), ("right_recode", false)] {
+                f.cleaned_recode(left)
+                    .map_err(|e| Error::config(format!("`{at}.{key}`: {e}")))?;
+            }
+            if let Some(u) = f.unparsed.as_deref() {
+                if u != "missing" && u != "stop" {
                     return Err(Error::config(format!(
-                        "`{at}.date_order`: `{order}` is not one of ymd, dmy, mdy"
+                        "`{at}.unparsed`: `{u}` is not one of missing, stop"
                     )));
                 }
             }
@@ -714,6 +834,11 @@ fn check_bands(method: Method, bands: &[f64], at: &str) -> Result<()> {
     Ok(())
 }
 
+/// The field or column a pass key names: the part before the first `:`.
+pub fn key_name(key: &str) -> &str {
+    key.split_once(':').map_or(key, |(n, _)| n)
+}
+
 /// Parses a transform name such as `soundex` or `first:3`.
 pub fn parse_transform(t: &str) -> Option<Transform> {
     let (head, arg) = match t.split_once(':') {
@@ -754,6 +879,78 @@ impl FieldSpec {
             Method::JaroWinkler | Method::Levenshtein | Method::Exact => Normalize::Name,
             Method::Date | Method::Number => Normalize::None,
         })
+    }
+
+    /// The spec under which a key-only column (see [`Config::key_columns`]) is read: cleaned
+    /// as names are (accents and punctuation dropped, lower case), for blocking only.
+    pub fn key_column(name: &str) -> FieldSpec {
+        FieldSpec {
+            name: name.to_string(),
+            left: None,
+            right: None,
+            method: Method::Exact,
+            bands: None,
+            relative: false,
+            frequency: false,
+            normalize: Some(Normalize::Name),
+            drop_tokens: Vec::new(),
+            date_order: None,
+            left_date_order: None,
+            right_date_order: None,
+            left_recode: BTreeMap::new(),
+            right_recode: BTreeMap::new(),
+            unparsed: None,
+        }
+    }
+
+    /// The date order of one side: its own key, else `date_order`, else ymd.
+    pub fn date_order_of(&self, left: bool) -> DateOrder {
+        let own = if left {
+            &self.left_date_order
+        } else {
+            &self.right_date_order
+        };
+        DateOrder::from_config(own.as_deref().or(self.date_order.as_deref()))
+    }
+
+    /// One side's value map with its keys and replacements cleaned as the field's values are;
+    /// an error (in words, without the key's location) for a key that cleans to nothing or
+    /// two keys that clean alike but map to different values.
+    pub fn cleaned_recode(
+        &self,
+        left: bool,
+    ) -> std::result::Result<HashMap<String, String>, String> {
+        let map = if left {
+            &self.left_recode
+        } else {
+            &self.right_recode
+        };
+        let how = self.normalize();
+        let mut out: HashMap<String, String> = HashMap::with_capacity(map.len());
+        let mut first_key: HashMap<String, &str> = HashMap::with_capacity(map.len());
+        for (key, to) in map {
+            let k = text::clean(key, how, &self.drop_tokens);
+            if k.is_empty() {
+                return Err(format!(
+                    "key `{key}` is empty after the field's cleaning, so no value can match it"
+                ));
+            }
+            let to = text::clean(to, how, &self.drop_tokens);
+            if let Some(before) = out.get(&k).filter(|b| **b != to) {
+                let other = first_key.get(&k).copied().unwrap_or("");
+                return Err(format!(
+                    "keys `{other}` and `{key}` are the same after the field's cleaning but map to different values (`{before}`, `{to}`)"
+                ));
+            }
+            first_key.entry(k.clone()).or_insert(key);
+            out.insert(k, to);
+        }
+        Ok(out)
+    }
+
+    /// True when an unparseable date or number stops the run (`unparsed = "stop"`).
+    pub fn stops_on_unparsed(&self) -> bool {
+        self.unparsed.as_deref() == Some("stop")
     }
 
     /// The cut points in force: the configured ones or the method's defaults.
@@ -840,11 +1037,90 @@ min_confidence = 0.5
             e.contains("unknown transform `yeer`") && e.contains("`year`"),
             "{e}"
         );
-        let e = err_of(&PINNED.replace("birth:year", "dob:year"));
-        assert!(e.contains("field `dob`, which no [[field]] defines"), "{e}");
+        let e = err_of(&PINNED.replace(
+            "method = \"date\"",
+            "method = \"date\"\nleft_date_order = \"ydm\"",
+        ));
+        assert!(
+            e.contains("`field[2].left_date_order`: `ydm` is not one of"),
+            "{e}"
+        );
+        let e = err_of(&PINNED.replace(
+            "method = \"date\"",
+            "method = \"date\"\nunparsed = \"skip\"",
+        ));
+        assert!(
+            e.contains("`field[2].unparsed`: `skip` is not one of missing, stop"),
+            "{e}"
+        );
         let e = err_of(&PINNED.replace("min_confidence = 0.5", "min_confidence = \"x\""));
         assert!(e.starts_with("line 20: key `min_confidence`: "), "{e}");
         assert!(!e.contains('\n'));
+    }
+
+    #[test]
+    fn keys_on_columns_that_are_not_fields() {
+        // A key naming no field is a key-only column, checked against the tables later.
+        let c = Config::from_text(
+            &PINNED.replace("\"birth:year\"]", "\"birth:year\", \"postcode:first:3\"]"),
+            Path::new("/cfg"),
+        )
+        .expect("config");
+        assert_eq!(c.key_columns, vec!["postcode"]);
+        let parts = &c.passes().expect("passes")[0];
+        assert_eq!(parts[0].source, KeySource::Field(0));
+        assert_eq!(parts[2].source, KeySource::Column(0));
+        assert_eq!(parts[2].transform, Transform::First(3));
+        assert_eq!(
+            c.first_key_naming("postcode"),
+            Some(("block[1].keys".to_string(), "postcode:first:3".to_string()))
+        );
+    }
+
+    #[test]
+    fn recodes_are_cleaned_and_checked() {
+        let with = |recode: &str| {
+            PINNED.replace(
+                "bands = [0.94, 0.85]",
+                &format!("bands = [0.94, 0.85]\n{recode}"),
+            )
+        };
+        let c = Config::from_text(
+            &with("left_recode = { \" Smith \" = \"SMYTH\", \"x\" = \"\" }"),
+            Path::new("/cfg"),
+        )
+        .expect("config");
+        let map = c.field[0].cleaned_recode(true).expect("map");
+        assert_eq!(map.get("smith").map(String::as_str), Some("smyth"));
+        assert_eq!(map.get("x").map(String::as_str), Some(""));
+        assert!(c.field[0].cleaned_recode(false).expect("map").is_empty());
+        let e = err_of(&with("right_recode = { \"..\" = \"M\" }"));
+        assert!(
+            e.contains("`field[1].right_recode`: key `..` is empty after the field's cleaning"),
+            "{e}"
+        );
+        let e = err_of(&with("left_recode = { \"M\" = \"male\", \"m\" = \"man\" }"));
+        assert!(
+            e.contains("keys `M` and `m` are the same after the field's cleaning"),
+            "{e}"
+        );
+        let e = err_of(&with("left_recodes = { \"M\" = \"male\" }"));
+        assert!(e.contains("did you mean `left_recode`"), "{e}");
+    }
+
+    #[test]
+    fn date_order_per_side() {
+        let c = Config::from_text(
+            &PINNED.replace(
+                "method = \"date\"",
+                "method = \"date\"\ndate_order = \"dmy\"\nright_date_order = \"mdy\"",
+            ),
+            Path::new("/cfg"),
+        )
+        .expect("config");
+        assert_eq!(c.field[1].date_order_of(true), DateOrder::Dmy);
+        assert_eq!(c.field[1].date_order_of(false), DateOrder::Mdy);
+        assert_eq!(c.field[0].date_order_of(false), DateOrder::Ymd);
     }
 
     #[test]

@@ -25,6 +25,7 @@
 
 use crate::block::{self, Candidates};
 use crate::compare::{Comparator, MISSING_LEVEL};
+use crate::config::KeySource;
 use crate::error::Result;
 use crate::pipeline::{self, Prepared};
 use crate::records::{FieldValues, Records};
@@ -50,6 +51,27 @@ pub const WARN_SHARE: f64 = 0.01;
 
 /// About the most within-table pairs weighed per table (record pairs counted from each side).
 pub const MAX_PAIRS: usize = 150_000;
+
+/// One table's values of a field as a self-join's record set: the `sample` rows of `all` on
+/// the left, every row on the right; an empty copy when no pass reads the field (`on`).
+fn self_join_copy(fv: &FieldValues, all: &[u32], sample: &[u32], on: bool) -> FieldValues {
+    FieldValues {
+        spec: fv.spec.clone(),
+        dict: if on { fv.dict.clone() } else { Vec::new() },
+        dates: if on { fv.dates.clone() } else { Vec::new() },
+        numbers: if on { fv.numbers.clone() } else { Vec::new() },
+        left: if on {
+            sample.iter().map(|&a| all[a as usize]).collect()
+        } else {
+            Vec::new()
+        },
+        right: if on { all.to_vec() } else { Vec::new() },
+        left_counts: Vec::new(),
+        right_counts: Vec::new(),
+        left_unparsed: Default::default(),
+        right_unparsed: Default::default(),
+    }
+}
 
 /// One table's estimate: the count and its interval.
 struct Within {
@@ -93,37 +115,21 @@ fn within(prep: &Prepared, left_side: bool) -> Result<Within> {
         v
     };
     // The table's interned values on both sides of a new record set, the sampled records on
-    // the left: only the dictionaries of the fields the passes read are copied.
-    let used = |k: usize| passes.iter().any(|p| p.parts.iter().any(|q| q.field == k));
-    let fields: Vec<FieldValues> = prep
-        .records
-        .fields
-        .iter()
-        .enumerate()
-        .map(|(k, fv)| {
-            let all = values(fv);
-            let on = used(k);
-            FieldValues {
-                spec: fv.spec.clone(),
-                dict: if on { fv.dict.clone() } else { Vec::new() },
-                dates: if on { fv.dates.clone() } else { Vec::new() },
-                numbers: if on { fv.numbers.clone() } else { Vec::new() },
-                left: if on {
-                    sample.iter().map(|&a| all[a as usize]).collect()
-                } else {
-                    Vec::new()
-                },
-                right: if on { all.to_vec() } else { Vec::new() },
-                left_counts: Vec::new(),
-                right_counts: Vec::new(),
-            }
-        })
-        .collect();
+    // the left: only the dictionaries of the fields and key-only columns the passes read are
+    // copied.
+    let used = |s: KeySource| passes.iter().any(|p| p.parts.iter().any(|q| q.source == s));
+    let copy = |fvs: &[FieldValues], source: fn(usize) -> KeySource| -> Vec<FieldValues> {
+        fvs.iter()
+            .enumerate()
+            .map(|(k, fv)| self_join_copy(fv, side(fv, left_side), &sample, used(source(k))))
+            .collect()
+    };
     let windowed = passes.iter().any(|p| p.window.is_some());
     let recs = Records {
         left_ids: vec![String::new(); sample.len()],
         right_ids: vec![String::new(); n],
-        fields,
+        fields: copy(&prep.records.fields, KeySource::Field),
+        key_columns: copy(&prep.records.key_columns, KeySource::Column),
     };
     // Key passes give a sampled record the same blocks whatever else is on its side; a
     // sorted-neighbourhood window does not, so window passes run on the whole table and keep
@@ -137,10 +143,8 @@ fn within(prep: &Prepared, left_side: bool) -> Result<Within> {
     if windowed {
         let mut whole = recs;
         whole.left_ids = vec![String::new(); n];
-        for (k, fv) in prep.records.fields.iter().enumerate() {
-            if used(k) {
-                whole.fields[k].left = values(fv).to_vec();
-            }
+        for copied in whole.fields.iter_mut().chain(whole.key_columns.iter_mut()) {
+            copied.left = copied.right.clone();
         }
         let window_passes: Vec<block::Pass> = passes
             .iter()

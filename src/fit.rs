@@ -16,7 +16,7 @@
 
 use crate::block::{Candidates, Pass};
 use crate::compare::{self, Comparison, PatternCounts};
-use crate::config::Config;
+use crate::config::{Config, KeySource};
 use crate::error::{Error, Result};
 use crate::io;
 use crate::model::check::ModelCheck;
@@ -248,7 +248,11 @@ pub fn check(
         };
         let mut free = vec![true; records.fields.len()];
         for p in passes {
-            p.parts.iter().for_each(|k| free[k.field] = false);
+            for part in &p.parts {
+                if let KeySource::Field(k) = part.source {
+                    free[k] = false;
+                }
+            }
         }
         model::check::check(
             pp,

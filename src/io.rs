@@ -24,6 +24,8 @@ pub struct Table {
     pub ids: Vec<String>,
     /// The needed columns, by name, each with one trimmed value per row ("" = missing).
     pub columns: HashMap<String, Vec<String>>,
+    /// Every column name of the header, trimmed, in file order.
+    pub header: Vec<String>,
     /// The 1-based line on which each row starts, for messages.
     pub lines: Vec<u64>,
     /// Size of the file in bytes.
@@ -125,6 +127,10 @@ pub struct ReadSpec {
     pub id: String,
     /// The compared columns needed besides the id.
     pub columns: Vec<String>,
+    /// Columns read when the header has them (the caller checks for the absent ones).
+    pub optional: Vec<String>,
+    /// The config section that describes the table (`left` or `right`), for hints.
+    pub section: String,
     /// The text encoding.
     pub encoding: Encoding,
     /// The delimiter byte.
@@ -154,20 +160,58 @@ pub fn read_table(path: &Path, spec: &ReadSpec) -> Result<Table> {
 /// first, whatever the thread count.
 pub fn read_table_from(bytes: &[u8], label: &Path, spec: &ReadSpec) -> Result<Table> {
     let (sha256, parsed) = rayon::join(|| sha256_hex(bytes), || parse_table(bytes, label, spec));
-    let (ids, columns, lines) = parsed?;
+    let (ids, columns, header, lines) = parsed?;
     Ok(Table {
         path: label.to_path_buf(),
         ids,
         columns,
+        header,
         lines,
         bytes: bytes.len() as u64,
         sha256,
     })
 }
 
-/// The ids, needed columns and row lines of a table read from CSV bytes (see
+/// The ids, needed columns, header names and row lines of a table read from CSV bytes (see
 /// [`read_table_from`]).
-type Parsed = (Vec<String>, HashMap<String, Vec<String>>, Vec<u64>);
+type Parsed = (
+    Vec<String>,
+    HashMap<String, Vec<String>>,
+    Vec<String>,
+    Vec<u64>,
+);
+
+/// The error for a column the header lacks: the columns present, the nearest name and, when
+/// the header reads as one column holding `;`, a tab or `|`, the delimiter to set under
+/// `[section]`; `why` follows the column's name (e.g. what needs it). Tag it with the file
+/// and line 1.
+pub fn column_not_found(header: &[String], col: &str, why: &str, section: &str) -> Error {
+    let present: Vec<&str> = header.iter().map(String::as_str).collect();
+    let mut hint = crate::config::nearest(col, &present)
+        .map(|n| format!("; closest is `{n}`"))
+        .unwrap_or_default();
+    if let [only] = present.as_slice() {
+        let count = |c: char| only.matches(c).count();
+        let likely = [(';', ";"), ('\t', "tab"), ('|', "|")]
+            .into_iter()
+            .filter(|(c, _)| count(*c) > 0)
+            .max_by_key(|(c, _)| count(*c));
+        if let Some((c, name)) = likely {
+            let shown = if c == '\t' {
+                "tab".to_string()
+            } else {
+                format!("`{c}`")
+            };
+            hint.push_str(&format!(
+                "; the header reads as one column; the file looks {shown}-delimited: set `delimiter = \"{name}\"` under [{section}]"
+            ));
+        }
+    }
+    Error::input(format!(
+        "column `{col}`{why} not found in the header (columns: {}){hint}",
+        present.join(", ")
+    ))
+}
 
 /// The raw cells of one column, in row order, packed into one buffer.
 #[derive(Default)]
@@ -260,23 +304,23 @@ fn parse_table(bytes: &[u8], label: &Path, spec: &ReadSpec) -> Result<Parsed> {
         names.push(name.trim().to_string());
     }
     let find = |col: &str| -> Result<usize> {
-        names.iter().position(|n| n == col).ok_or_else(|| {
-            let present: Vec<&str> = names.iter().map(String::as_str).collect();
-            let hint = crate::config::nearest(col, &present)
-                .map(|n| format!("; closest is `{n}`"))
-                .unwrap_or_default();
-            at(Error::input(format!(
-                "column `{col}` not found in the header (columns: {}){hint}",
-                present.join(", ")
-            ))
-            .with_line(1))
-        })
+        names
+            .iter()
+            .position(|n| n == col)
+            .ok_or_else(|| at(column_not_found(&names, col, "", &spec.section).with_line(1)))
     };
     let id_at = find(&spec.id)?;
     let mut wanted: Vec<(String, usize)> = Vec::new();
     for c in &spec.columns {
         if !wanted.iter().any(|(n, _)| n == c) {
             wanted.push((c.clone(), find(c)?));
+        }
+    }
+    for c in &spec.optional {
+        if let Some(i) = names.iter().position(|n| n == c) {
+            if !wanted.iter().any(|(n, _)| n == c) {
+                wanted.push((c.clone(), i));
+            }
         }
     }
     // One pass over the rows copies the needed cells (the id first, then the wanted columns)
@@ -359,7 +403,7 @@ fn parse_table(bytes: &[u8], label: &Path, spec: &ReadSpec) -> Result<Parsed> {
     let mut checked = checked.into_iter().map(|(v, _)| v);
     let ids = checked.next().unwrap_or_default();
     let columns = wanted.into_iter().map(|(n, _)| n).zip(checked).collect();
-    Ok((ids, columns, lines))
+    Ok((ids, columns, names, lines))
 }
 
 /// Reads the next record into `record` and returns its line, or `None` at the end; a row
@@ -749,6 +793,8 @@ mod tests {
         ReadSpec {
             id: "id".into(),
             columns: cols.iter().map(|s| s.to_string()).collect(),
+            optional: vec!["extra".into()],
+            section: "left".into(),
             encoding: Encoding::Utf8,
             delimiter: b',',
         }
@@ -775,6 +821,11 @@ mod tests {
         assert_eq!(t.ids, vec!["1", "2"]);
         assert_eq!(t.column("name"), &["Ann".to_string(), "Bo\nB".to_string()]);
         assert_eq!(t.lines, vec![2, 3]);
+        assert_eq!(t.header, vec!["id", "name"]);
+        // An optional column is read when the header has it and left out when not.
+        assert!(!t.columns.contains_key("extra"));
+        let t = read(b"id,extra\n1, x\n", &[]).unwrap();
+        assert_eq!(t.column("extra"), &["x".to_string()]);
     }
 
     #[test]
@@ -797,6 +848,18 @@ mod tests {
             "{e}"
         );
         assert!(err(b"", &[]).contains("empty"));
+        // A `;`-delimited file read with commas: one column whose name holds the delimiter.
+        let e = err(b"id;surname;town\n1;a;b\n", &["surname"]);
+        assert!(
+            e.ends_with("the header reads as one column; the file looks `;`-delimited: set `delimiter = \";\"` under [left]"),
+            "{e}"
+        );
+        let e = err(b"id\tsurname\n1\ta\n", &["surname"]);
+        assert!(
+            e.contains("looks tab-delimited: set `delimiter = \"tab\"`"),
+            "{e}"
+        );
+        assert!(!err(b"id,name\n1,a\n", &["town"]).contains("delimited"));
         assert!(err(b"id,name\n", &["name"]).contains("no records"));
         let e = err(b"id,name\n1,caf\xE9\n", &["name"]);
         assert!(

@@ -9,6 +9,7 @@
 //! only parses arguments and prints.
 
 pub mod block;
+pub mod codings;
 pub mod compare;
 pub mod config;
 pub mod duplicates;

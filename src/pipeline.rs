@@ -5,6 +5,7 @@
 //! [`assess_only`].
 
 use crate::block::{self, Candidates, Pass, PassStats};
+use crate::codings;
 use crate::compare::{self, Comparison, PatternCounts, MISSING_LEVEL};
 use crate::config::Config;
 use crate::error::{Error, Result};
@@ -167,6 +168,8 @@ pub struct Prepared {
     pub patterns: PairPatterns,
     /// Per-field separation.
     pub separations: Vec<FieldSeparation>,
+    /// Per field: agreement on the candidate pairs and values in common between the sides.
+    pub agreement: Vec<codings::FieldAgreement>,
     /// The model check of the final laws (None without candidates).
     pub check: Option<ModelCheck>,
     /// Expected duplicate pairs inside each table (None without candidates).
@@ -246,27 +249,74 @@ fn read_side(cfg: &Config, left: bool) -> Result<Table> {
         }
     };
     // A column spec may join several columns with `+` (one grouped comparison).
+    let split =
+        |spec: &str| -> Vec<String> { spec.split('+').map(|c| c.trim().to_string()).collect() };
     let columns = cfg
         .field
         .iter()
         .flat_map(|f| {
-            if left {
+            split(if left {
                 f.left_column()
             } else {
                 f.right_column()
-            }
-            .split('+')
-            .map(|c| c.trim().to_string())
-            .collect::<Vec<_>>()
+            })
         })
         .collect();
+    // Key-only columns are read where present; `check_key_columns` then names the absent.
+    let optional = cfg.key_columns.iter().flat_map(|c| split(c)).collect();
     let read = ReadSpec {
         id: spec.id.clone(),
         columns,
+        optional,
+        section: key.to_string(),
         encoding,
         delimiter,
     };
     io::read_table(&cfg.resolve(&spec.path), &read)
+}
+
+/// Checks that both tables hold every key-only column (see `Config::key_columns`): a name
+/// that neither table has is taken for a misspelt field or column (a config error naming the
+/// key and the nearest field or column of both tables); a column one table lacks is that
+/// table's missing-column error.
+fn check_key_columns(cfg: &Config, left: &Table, right: &Table) -> Result<()> {
+    for name in &cfg.key_columns {
+        let (at, key) = cfg.first_key_naming(name).unwrap_or_default();
+        let has = |t: &Table| {
+            name.split('+')
+                .all(|c| t.header.iter().any(|h| h == c.trim()))
+        };
+        match (has(left), has(right)) {
+            (true, true) => {}
+            (false, false) => {
+                let mut known: Vec<&str> = cfg.field.iter().map(|f| f.name.as_str()).collect();
+                known.extend(
+                    left.header
+                        .iter()
+                        .filter(|h| right.header.contains(h))
+                        .map(String::as_str),
+                );
+                let hint = crate::config::nearest(name, &known)
+                    .map(|n| format!("; did you mean `{n}`?"))
+                    .unwrap_or_default();
+                return Err(Error::config(format!(
+                    "`{at}`: key `{key}` names `{name}`, which is neither a [[field]] nor a column of both tables{hint}"
+                )));
+            }
+            (in_left, _) => {
+                let (t, section) = if in_left {
+                    (right, "right")
+                } else {
+                    (left, "left")
+                };
+                let why = format!(" (for key `{key}` of `{at}`)");
+                return Err(io::column_not_found(&t.header, name, &why, section)
+                    .with_line(1)
+                    .with_file(&t.path));
+            }
+        }
+    }
+    Ok(())
 }
 
 /// Ready-to-run passes from a list of pass specs (`at` names the list in errors).
@@ -297,8 +347,8 @@ pub fn passes_from(
 }
 
 /// Leaves out every field that is empty in every row of one table (it could carry no
-/// evidence and would only confuse the fit), and every blocking pass that uses one, with a
-/// warning for each.
+/// evidence and would only confuse the fit), and every blocking pass that uses one or a
+/// key-only column empty in one table, with a warning for each.
 fn drop_empty_fields(
     mut config: Config,
     left: &Table,
@@ -321,6 +371,16 @@ fn drop_empty_fields(
             }
         }
     }
+    for c in &config.key_columns {
+        for (t, side) in [(left, "left"), (right, "right")] {
+            if all_empty(t, c) && !empty.contains(c) {
+                warnings.push(format!(
+                    "column `{c}` (used for blocking only) is empty in every row of the {side} table; the passes that use it are skipped"
+                ));
+                empty.push(c.clone());
+            }
+        }
+    }
     if empty.is_empty() {
         return Ok(config);
     }
@@ -332,14 +392,13 @@ fn drop_empty_fields(
     }
     let mut kept = Vec::new();
     for (i, b) in config.block.drain(..).enumerate() {
-        let uses = b.keys.iter().any(|k| {
-            empty
-                .iter()
-                .any(|e| k.split(':').next() == Some(e.as_str()))
-        });
+        let uses = b
+            .keys
+            .iter()
+            .any(|k| empty.iter().any(|e| crate::config::key_name(k) == e));
         if uses {
             warnings.push(format!(
-                "{} uses a field that is left out; the pass is skipped",
+                "{} uses a field or column that is left out; the pass is skipped",
                 b.name.clone().unwrap_or_else(|| format!("pass {}", i + 1))
             ));
         } else {
@@ -359,8 +418,16 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
     // Both tables at once; the left table's error first when both fail.
     let (left, right) = rayon::join(|| read_side(&config, true), || read_side(&config, false));
     let (left, right) = (left?, right?);
+    check_key_columns(&config, &left, &right)?;
     let config = drop_empty_fields(config, &left, &right, &mut warnings)?;
-    let records = records::build(&left, &right, &config.field)?;
+    let records = records::build(&left, &right, &config.field, &config.key_columns)?;
+    for fv in &records.fields {
+        warnings.extend(
+            [true, false]
+                .into_iter()
+                .filter_map(|l| fv.unparsed_warning(l)),
+        );
+    }
     clock.lap("reading", &mut timings);
 
     progress.stage("blocking");
@@ -386,6 +453,8 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
     progress.stage("comparing");
     let comparison = compare::compare(&records, &cands);
     let counts = comparison.pattern_counts();
+    let agreement = codings::agreement(&records, &counts);
+    warnings.extend(codings::warnings(&records, &agreement));
     clock.lap("comparing", &mut timings);
 
     progress.stage("fitting");
@@ -467,6 +536,7 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
         theta,
         patterns,
         separations,
+        agreement,
         check,
         duplicates: None,
         warnings,

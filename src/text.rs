@@ -1,4 +1,5 @@
-//! Value cleaning, phonetic codes and date parsing: pure functions on one value at a time.
+//! Value cleaning, phonetic codes and date parsing (numeric forms and English month names):
+//! pure functions on one value at a time.
 //!
 //! Used by `io` (cleaning once per record) and by `block` (key transforms). Nothing here sees a
 //! pair of records or a file.
@@ -243,12 +244,25 @@ impl DateOrder {
             _ => DateOrder::Ymd,
         }
     }
+
+    /// Examples of the forms read under this order, for messages.
+    pub fn examples(self) -> &'static str {
+        match self {
+            DateOrder::Ymd => "1984-07-21, 19840721, 1984-07, 21 July 1984 or 1984",
+            DateOrder::Dmy => "21/07/1984, 1984-07-21, 21 July 1984 or 1984",
+            DateOrder::Mdy => "07/21/1984, 1984-07-21, July 21, 1984 or 1984",
+        }
+    }
 }
 
-/// Parses `YYYY-MM-DD`, `YYYYMMDD`, `YYYY-MM`, `YYYY` (separators `-`, `/` or `.`), or the
-/// configured day/month order. Returns `None` for text that is not a date.
+/// Parses `YYYY-MM-DD`, `YYYYMMDD`, `YYYY-MM`, `YYYY` (separators `-`, `/` or `.`), the
+/// configured day/month order, or a date with its month written in English (see
+/// [`parse_written_date`]). Returns `None` for text that is not a date.
 pub fn parse_date(s: &str, order: DateOrder) -> Option<Date> {
     let s = s.trim();
+    if s.bytes().any(|b| b.is_ascii_alphabetic()) {
+        return parse_written_date(s);
+    }
     let parts: Vec<&str> = s.split(['-', '/', '.', ' ']).collect();
     let num = |p: &str| -> Option<u32> {
         if p.is_empty() || p.len() > 4 || !p.bytes().all(|b| b.is_ascii_digit()) {
@@ -277,6 +291,65 @@ pub fn parse_date(s: &str, order: DateOrder) -> Option<Date> {
         }
         _ => return None,
     };
+    calendar_date(y, m, d)
+}
+
+/// A date whose month is written in English, in any case and any order of its parts:
+/// "12 March 1946", "March 12, 1946", "12-Mar-1946", "12th March 1946", "March 1946". The
+/// month is its name or the name's first three letters or more ("Sept"); the year has four
+/// digits; the day, when given, one or two (an English ordinal ending is allowed).
+pub fn parse_written_date(s: &str) -> Option<Date> {
+    let (mut year, mut month, mut day) = (None, None, None);
+    for t in s.split(['-', '/', '.', ' ', ',']).filter(|t| !t.is_empty()) {
+        let t = t.to_ascii_lowercase();
+        let digits = t.trim_end_matches(|c: char| c.is_ascii_alphabetic());
+        let ordinal = ["st", "nd", "rd", "th"].contains(&&t[digits.len()..]);
+        let slot = if t.bytes().all(|b| b.is_ascii_alphabetic()) {
+            month.replace(month_number(&t)?)
+        } else if !digits.bytes().all(|b| b.is_ascii_digit()) || digits.is_empty() {
+            return None;
+        } else if digits.len() == 4 && digits.len() == t.len() {
+            year.replace(digits.parse::<u32>().ok()?)
+        } else if digits.len() <= 2 && (ordinal || digits.len() == t.len()) {
+            day.replace(digits.parse::<u32>().ok()?)
+        } else {
+            return None;
+        };
+        if slot.is_some() {
+            return None;
+        }
+    }
+    calendar_date(year?, Some(month?), day)
+}
+
+/// The month of an English month name or its first three letters or more, lower case.
+fn month_number(t: &str) -> Option<u32> {
+    const MONTHS: [&str; 12] = [
+        "january",
+        "february",
+        "march",
+        "april",
+        "may",
+        "june",
+        "july",
+        "august",
+        "september",
+        "october",
+        "november",
+        "december",
+    ];
+    if t.len() < 3 {
+        return None;
+    }
+    MONTHS
+        .iter()
+        .position(|m| m.starts_with(t))
+        .map(|i| i as u32 + 1)
+}
+
+/// The date of a year, month and day when they make one in the Gregorian calendar (years
+/// 1000 to 9999).
+fn calendar_date(y: u32, m: Option<u32>, d: Option<u32>) -> Option<Date> {
     if !(1000..=9999).contains(&y) {
         return None;
     }
@@ -426,8 +499,67 @@ mod tests {
             })
         );
         assert_eq!(parse_date("soon", DateOrder::Ymd), None);
+        assert_eq!(
+            parse_date("1980-01-31", DateOrder::Mdy),
+            Some(d(1980, 1, 31))
+        );
+        assert_eq!(
+            DateOrder::Dmy.examples().split(',').next(),
+            Some("21/07/1984")
+        );
+        assert_eq!(
+            DateOrder::Mdy.examples().split(',').next(),
+            Some("07/21/1984")
+        );
         // Gregorian leap rule: 1900 is not a leap year, 2000 is (common practice).
         assert_eq!(days_in_month(1900, 2), 28);
         assert_eq!(days_in_month(2000, 2), 29);
+    }
+
+    #[test]
+    fn written_months() {
+        // English month names and their three-letter abbreviations as written in dates
+        // (common practice); the order of the parts does not matter.
+        let d = |y, m, dd| {
+            Some(Date {
+                year: y,
+                month: Some(m),
+                day: Some(dd),
+            })
+        };
+        for s in [
+            "12 March 1946",
+            "March 12, 1946",
+            "12 Mar 1946",
+            "12-MAR-1946",
+            "12th march 1946",
+            "mar. 12, 1946",
+            "1946 March 12",
+        ] {
+            assert_eq!(parse_date(s, DateOrder::Ymd), d(1946, 3, 12), "{s}");
+            assert_eq!(parse_date(s, DateOrder::Mdy), d(1946, 3, 12), "{s}");
+        }
+        assert_eq!(parse_date("Sept 2, 1950", DateOrder::Dmy), d(1950, 9, 2));
+        assert_eq!(
+            parse_date("July 1984", DateOrder::Dmy),
+            Some(Date {
+                year: 1984,
+                month: Some(7),
+                day: None
+            })
+        );
+        // No such day, no year, two months, a three-digit day or an unknown word.
+        for s in [
+            "30 February 1946",
+            "12 March",
+            "March April 1946",
+            "123 March 1946",
+            "12 Ma 1946",
+            "12 Marchx 1946",
+            "12 March 1946 soon",
+            "12x March 1946",
+        ] {
+            assert_eq!(parse_date(s, DateOrder::Ymd), None, "{s}");
+        }
     }
 }

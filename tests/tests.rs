@@ -7,6 +7,8 @@ mod common;
 
 #[path = "it/bad_input.rs"]
 mod bad_input;
+#[path = "it/codings.rs"]
+mod codings;
 #[path = "it/getting_started.rs"]
 mod getting_started;
 #[path = "it/honesty.rs"]

@@ -62,6 +62,21 @@ pub struct FieldSummary {
     pub missing_right: f64,
     /// Whether value-frequency weighting is on.
     pub frequency: bool,
+    /// Share of the candidate pairs holding both values whose values agree at the top level
+    /// (identical after cleaning); null without such pairs.
+    pub top_agreement: Option<f64>,
+    /// Share of the left records with a value whose value some right record holds too.
+    pub left_values_shared: Option<f64>,
+    /// Share of the right records with a value whose value some left record holds too.
+    pub right_values_shared: Option<f64>,
+    /// Left values that are not dates (or numbers) and were taken as missing.
+    pub unparsed_left: u64,
+    /// The lines of the first five of them.
+    pub unparsed_left_lines: Vec<u64>,
+    /// Right values that are not dates (or numbers) and were taken as missing.
+    pub unparsed_right: u64,
+    /// The lines of the first five of them.
+    pub unparsed_right_lines: Vec<u64>,
 }
 
 /// Per pass in summary.json.
@@ -404,6 +419,13 @@ fn summary(
             missing_left: fv.left_missing_rate(),
             missing_right: fv.right_missing_rate(),
             frequency: fv.spec.frequency,
+            top_agreement: prep.agreement[k].top_agreement,
+            left_values_shared: prep.agreement[k].left_shared,
+            right_values_shared: prep.agreement[k].right_shared,
+            unparsed_left: fv.left_unparsed.count,
+            unparsed_left_lines: fv.left_unparsed.first_lines.clone(),
+            unparsed_right: fv.right_unparsed.count,
+            unparsed_right_lines: fv.right_unparsed.first_lines.clone(),
         })
         .collect();
     let passes = prep

@@ -121,7 +121,10 @@ fn empty_table() {
 #[test]
 fn bad_date() {
     check_error(
-        SMALL_CONFIG,
+        &SMALL_CONFIG.replace(
+            "method = \"date\"",
+            "method = \"date\"\nunparsed = \"stop\"",
+        ),
         &SMALL_LEFT.replace("1990-11-11", "soon"),
         SMALL_RIGHT,
         &["left.csv: line 4: column birth: not a date"],
@@ -145,7 +148,7 @@ fn config_errors_name_the_key() {
         SMALL_LEFT,
         SMALL_RIGHT,
         &[
-            "field `nam`, which no [[field]] defines",
+            "`block[1].keys`: key `nam:first:1` names `nam`, which is neither a [[field]] nor a column of both tables",
             "did you mean `name`",
         ],
     );

@@ -170,3 +170,19 @@ keys = ["name:first:1"]
 pub const SMALL_LEFT: &str = "id,name,birth,town\n1,Ann Oskar,1980-01-02,Orlow\n2,Bram Tell,1975-06-30,Selwick\n3,Cara Venn,1990-11-11,Orlow\n";
 /// The right table for [`SMALL_CONFIG`].
 pub const SMALL_RIGHT: &str = "id,name,birth,town\na,Ann Oskar,1980-01-02,Orlow\nb,Bram Tel,1975-06-30,Selwick\nc,Dov Ash,1961-03-03,Fenmouth\n";
+
+/// English month names, for dates written out in words.
+pub const MONTHS: [&str; 12] = [
+    "January",
+    "February",
+    "March",
+    "April",
+    "May",
+    "June",
+    "July",
+    "August",
+    "September",
+    "October",
+    "November",
+    "December",
+];

@@ -205,6 +205,8 @@ fn spec() -> ReadSpec {
     ReadSpec {
         id: "id".into(),
         columns: vec!["name".into()],
+        optional: Vec::new(),
+        section: "left".into(),
         encoding: Encoding::Utf8,
         delimiter: b',',
     }
