@@ -19,6 +19,7 @@ pub mod folder;
 pub mod io;
 pub mod matching;
 pub mod model;
+pub mod numbers;
 pub mod pipeline;
 pub mod posterior;
 pub mod records;

@@ -12,7 +12,8 @@ use std::process::ExitCode;
 pub struct Args {
     #[command(flatten)]
     run: super::RunArgs,
-    /// Stop with exit status 3 instead of writing links when the verdict is infeasible.
+    /// Stop with exit status 3 instead of writing links when the verdict is infeasible
+    /// (summary.json and report.html are still written, saying why).
     #[arg(long)]
     stop_if_infeasible: bool,
 }
@@ -28,17 +29,18 @@ pub fn run(args: Args) -> Result<ExitCode> {
         println!("{}", report::assessment_text(&prep, &linkage.assessment));
     }
     if stop && linkage.assessment.verdict == Verdict::Infeasible {
+        report::write_stopped(&args.run.out, &prep, &linkage)?;
         return Err(Error::new(
             ErrorKind::Infeasible,
-            "the linkage is infeasible; no links were written (stop_if_infeasible is set)",
+            "the linkage is infeasible; no links were written (stop_if_infeasible is set); summary.json and report.html say why",
         ));
     }
     let written = report::write_linkage(&args.run.out, &prep, &linkage)?;
     if !args.run.quiet {
         println!(
-            "links: {} (confidence cut-off {:.3}); outputs in {}",
+            "links: {} (confidence cut-off {}); outputs in {}",
             linkage.links.len(),
-            linkage.cutoff,
+            dovetail::numbers::cutoff(linkage.cutoff),
             args.run.out.display()
         );
         for (stage, secs) in &prep.timings {

@@ -12,6 +12,7 @@ pub mod forecast;
 pub mod separation;
 
 use crate::model::Fit;
+use crate::numbers::{nats, percent, ratio};
 use forecast::Forecast;
 use separation::FieldSeparation;
 use serde::Serialize;
@@ -80,7 +81,9 @@ pub struct Assessment {
     pub bhattacharyya: f64,
     /// sum_k -ln B_k.
     pub nats_supplied: f64,
-    /// (1/2) ln d: the separation the degree asks for.
+    /// (1/2) ln d: the separation the threshold sqrt(d)·B <= 1 asks for. Negative when d < 1
+    /// (fewer than one false candidate per record: any fields meet the threshold), minus
+    /// infinity when d = 0.
     pub nats_needed: f64,
     /// Estimated true pairs among the candidates: p |C|.
     pub estimated_true_pairs: f64,
@@ -117,8 +120,8 @@ pub fn identification_problems(fit: &Fit, fields: &[FieldSeparation]) -> Vec<Str
     }
     if fit.p < 1e-5 || fit.p > 0.99 {
         out.push(format!(
-            "the fit found a degenerate share of true pairs (p = {:.2e}) and cannot tell the two classes apart",
-            fit.p
+            "the fit found a degenerate share of true pairs (p = {}) and cannot tell the two classes apart",
+            crate::numbers::ratio(fit.p)
         ));
     }
     if fit.switched {
@@ -205,7 +208,10 @@ pub fn assess(fit: &Fit, input: AssessInput<'_>, rule: &VerdictRule) -> Assessme
         0.0
     };
     let margin = d.sqrt() * b;
-    let needed = if d > 1.0 { 0.5 * d.ln() } else { 0.0 };
+    // The threshold sqrt(d) B <= 1 in nats: -ln B >= (1/2) ln d. Below d = 1 the right side
+    // is negative, so any fields meet it (B <= 1); the true value is kept (minus infinity at
+    // d = 0) and the report says what it means.
+    let needed = 0.5 * d.ln();
     let mut reasons = identification_problems(fit, &input.fields);
     let forecast_rate = input.forecast.as_ref().map(|f| f.error_rate);
     let verdict = if !reasons.is_empty() {
@@ -215,15 +221,18 @@ pub fn assess(fit: &Fit, input: AssessInput<'_>, rule: &VerdictRule) -> Assessme
     {
         if margin >= rule.infeasible_margin {
             reasons.push(format!(
-                "the margin sqrt(d)·B = {margin:.3} is at or above {:.2}: the fields supply {supplied:.2} nats of separation where this degree needs {needed:.2}",
-                rule.infeasible_margin
+                "the margin sqrt(d)·B = {} is at or above {}: the fields supply {} nats of separation where this degree needs {}",
+                ratio(margin),
+                crate::numbers::setting(rule.infeasible_margin),
+                nats(supplied),
+                nats(needed - rule.infeasible_margin.ln())
             ));
         }
         if let Some(e) = forecast_rate.filter(|&e| e >= rule.infeasible_error) {
             reasons.push(format!(
-                "the forecast mismatch rate {:.1}% is at or above {:.1}%",
-                e * 100.0,
-                rule.infeasible_error * 100.0
+                "the forecast mismatch rate {} is at or above {}",
+                percent(e),
+                percent(rule.infeasible_error)
             ));
         }
         Verdict::Infeasible
@@ -231,14 +240,16 @@ pub fn assess(fit: &Fit, input: AssessInput<'_>, rule: &VerdictRule) -> Assessme
         && forecast_rate.is_none_or(|e| e <= rule.feasible_error)
     {
         reasons.push(format!(
-            "the margin sqrt(d)·B = {margin:.3e} is well below 1 and the forecast mismatch rate is {}",
-            forecast_rate.map_or("not computed".to_string(), |e| format!("{:.2}%", e * 100.0))
+            "the margin sqrt(d)·B = {} is well below 1 and the forecast mismatch rate is {}",
+            ratio(margin),
+            forecast_rate.map_or("not computed".to_string(), percent)
         ));
         Verdict::Feasible
     } else {
         reasons.push(format!(
-            "margin sqrt(d)·B = {margin:.3}, forecast mismatch rate {}: between the feasible and infeasible settings",
-            forecast_rate.map_or("not computed".to_string(), |e| format!("{:.2}%", e * 100.0))
+            "margin sqrt(d)·B = {}, forecast mismatch rate {}: between the feasible and infeasible settings",
+            ratio(margin),
+            forecast_rate.map_or("not computed".to_string(), percent)
         ));
         Verdict::Borderline
     };

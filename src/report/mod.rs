@@ -178,7 +178,8 @@ pub struct Summary {
     pub bhattacharyya: f64,
     /// sqrt(d) B, against the threshold 1.
     pub margin: f64,
-    /// (1/2) ln d.
+    /// (1/2) ln d: the separation the threshold sqrt(d)·B <= 1 asks for; negative when
+    /// d < 1 (any fields meet the threshold then), null when d = 0 (minus infinity).
     pub separation_needed_nats: f64,
     /// sum_k -ln B_k.
     pub separation_supplied_nats: f64,
@@ -192,6 +193,9 @@ pub struct Summary {
     pub forecast_interval: Option<[f64; 2]>,
     /// Details of the forecast.
     pub forecast: Option<Forecast>,
+    /// True when `stop_if_infeasible` stopped the run on an infeasible verdict: no links,
+    /// unlinked or review file was written, only summary.json and report.html.
+    pub stopped_infeasible: bool,
     /// Links written.
     pub links: Option<usize>,
     /// Pairs in the optimum matching left out by the cut-off.
@@ -233,6 +237,12 @@ pub struct Summary {
     pub field_dependence: Vec<DependenceSummary>,
     /// How confidences were computed: components enumerated exactly and by belief propagation.
     pub confidence_components: Option<[usize; 3]>,
+    /// Per side, why records stayed unlinked: each reason of [`UnlinkedReason`] with its
+    /// count (zeros included); the counts add up to the side's unlinked records. Null for
+    /// `assess` and for a run stopped by `stop_if_infeasible`.
+    pub unlinked_reasons: Option<UnlinkedCounts>,
+    /// What to do next, derived from this run (the list report.html shows).
+    pub next_steps: Vec<String>,
     /// Warnings, in plain words.
     pub warnings: Vec<String>,
     /// How the run was made.
@@ -322,12 +332,18 @@ pub struct InputFile {
     pub sha256: String,
 }
 
-/// The run manifest: enough to repeat the run and check its inputs. `threads` and `seconds`
-/// describe this run only; every other output byte is the same for any thread count.
+/// The run manifest: enough to repeat the run and check its inputs. `run_date`, `threads` and
+/// `seconds` describe this run only (report.html shows the date too); every other output byte
+/// is the same for any thread count, and with `SOURCE_DATE_EPOCH` set the date is too.
 #[derive(Debug, Serialize)]
 pub struct Manifest {
     /// Tool version.
     pub version: &'static str,
+    /// When the run was made, UTC, RFC 3339 to the second (`2024-05-01T09:30:00Z`): from the
+    /// `SOURCE_DATE_EPOCH` environment variable (seconds since 1970-01-01 UTC, the
+    /// reproducible-builds convention) when set, else the clock. Run-specific, like `threads`
+    /// and `seconds`.
+    pub run_date: String,
     /// The config as read (after defaults).
     pub config: crate::config::Config,
     /// The left table.
@@ -342,7 +358,7 @@ pub struct Manifest {
     pub seconds: Vec<(String, f64)>,
 }
 
-fn manifest(prep: &Prepared) -> Manifest {
+fn manifest(prep: &Prepared, run_date: &str) -> Manifest {
     let file = |t: &crate::io::Table| InputFile {
         path: t.path.display().to_string(),
         bytes: t.bytes,
@@ -351,6 +367,7 @@ fn manifest(prep: &Prepared) -> Manifest {
     };
     Manifest {
         version: VERSION,
+        run_date: run_date.to_string(),
         config: prep.config.clone(),
         left: file(&prep.left),
         right: file(&prep.right),
@@ -394,11 +411,20 @@ pub fn estimates(l: &Linkage) -> (Option<f64>, Option<f64>) {
     (l.precision.map(|e| e.value), l.recall.map(|e| e.value))
 }
 
+/// What summary.json needs beyond the run: the date, and for `link` the outcome per record.
+struct SummaryExtra<'a> {
+    run_date: &'a str,
+    outcomes: Option<&'a Outcomes>,
+    next_steps: Vec<String>,
+    stopped: bool,
+}
+
 fn summary(
     prep: &Prepared,
     a: &Assessment,
     link: Option<&Linkage>,
     command: &'static str,
+    extra: SummaryExtra<'_>,
 ) -> Summary {
     let fields = prep
         .records
@@ -479,6 +505,7 @@ fn summary(
         separation_supplied_nats: a.nats_supplied,
         verdict: a.verdict,
         verdict_reasons: a.reasons.clone(),
+        stopped_infeasible: extra.stopped,
         forecast_error_rate: a.forecast.as_ref().map(|f| f.error_rate),
         forecast_interval: a.forecast.as_ref().map(|f| f.interval),
         forecast: a.forecast.clone(),
@@ -522,8 +549,13 @@ fn summary(
             })
             .collect(),
         confidence_components: comps,
+        unlinked_reasons: extra.outcomes.map(|o| UnlinkedCounts {
+            left: o.counts(true),
+            right: o.counts(false),
+        }),
+        next_steps: extra.next_steps,
         warnings: prep.warnings.clone(),
-        manifest: manifest(prep),
+        manifest: manifest(prep, extra.run_date),
     }
 }
 
@@ -536,8 +568,15 @@ fn write_summary(out: &mut OutputSet, s: &Summary) -> Result<()> {
 
 /// Writes summary.json for `assess`.
 pub fn write_assessment(dir: &Path, prep: &Prepared, a: &Assessment) -> Result<Vec<PathBuf>> {
+    let run_date = run_date()?;
     let mut out = OutputSet::for_run(dir, crate::folder::stamp_of(prep, "assess"))?;
-    write_summary(&mut out, &summary(prep, a, None, "assess"))?;
+    let extra = SummaryExtra {
+        run_date: &run_date,
+        outcomes: None,
+        next_steps: next_steps(prep, a, None),
+        stopped: false,
+    };
+    write_summary(&mut out, &summary(prep, a, None, "assess", extra))?;
     out.commit()
 }
 
@@ -566,19 +605,419 @@ fn found_by(prep: &Prepared, i: usize) -> String {
         .join("+")
 }
 
-/// Why a record stays unlinked.
-fn unlinked_reason(has_candidate: bool, in_optimum: bool) -> &'static str {
-    match (has_candidate, in_optimum) {
-        (false, _) => "no candidate pair",
-        (true, true) => "below the confidence cut-off",
-        (true, false) => "not chosen by the one-to-one optimum",
+/// A candidate whose one-to-one confidence is below this is not a plausible partner: an
+/// unlinked record whose every candidate is below it has "no plausible candidate", not a
+/// partner it lost. 0.05 is one chance in twenty, the usual "unlikely" of common practice;
+/// the model check counts pairs as linkable from the same value.
+pub const PLAUSIBLE_CONFIDENCE: f64 = 0.05;
+
+/// Why a record stayed unlinked (unlinked_left.csv and unlinked_right.csv, `reason`).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum UnlinkedReason {
+    /// No blocking pass gave the record a candidate.
+    NoCandidate,
+    /// Every candidate's confidence is below [`PLAUSIBLE_CONFIDENCE`].
+    NoPlausibleCandidate,
+    /// Its most likely candidate's other record went to another record in the one-to-one
+    /// optimum.
+    LostToBetter,
+    /// Chosen by the one-to-one optimum, but with a confidence under the cut-off.
+    BelowCutoff,
+    /// Neither the record nor its most likely candidate's other record is in the optimum: no
+    /// candidate pair has even posterior odds (weight plus prior above 0), so the optimum
+    /// leaves both unlinked.
+    OnlyWeakCandidates,
+    /// The fit cannot tell true from false pairs, so no link was written at all.
+    NotIdentified,
+}
+
+impl UnlinkedReason {
+    /// Every reason, in the order the report lists them.
+    pub const ALL: [UnlinkedReason; 6] = [
+        UnlinkedReason::NoCandidate,
+        UnlinkedReason::NoPlausibleCandidate,
+        UnlinkedReason::LostToBetter,
+        UnlinkedReason::BelowCutoff,
+        UnlinkedReason::OnlyWeakCandidates,
+        UnlinkedReason::NotIdentified,
+    ];
+
+    /// The reason as written in the unlinked files and summary.json.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            UnlinkedReason::NoCandidate => "no candidate pair",
+            UnlinkedReason::NoPlausibleCandidate => "no plausible candidate",
+            UnlinkedReason::LostToBetter => "lost to a better candidate",
+            UnlinkedReason::BelowCutoff => "below the confidence cut-off",
+            UnlinkedReason::OnlyWeakCandidates => "only weak candidates",
+            UnlinkedReason::NotIdentified => "model not identified",
+        }
+    }
+
+    /// What the reason means, in plain words (report.html).
+    pub fn meaning(self) -> String {
+        match self {
+            UnlinkedReason::NoCandidate => "no blocking pass gave the record the same key as any record of the other table, so it was never compared: it may have no partner there, or blocking missed it".into(),
+            UnlinkedReason::NoPlausibleCandidate => format!("it was compared, but every candidate's confidence is below {}: most likely its person is not in the other table", crate::numbers::cutoff(PLAUSIBLE_CONFIDENCE)),
+            UnlinkedReason::LostToBetter => "its most likely partner was given to another record that fits it better (each record links to at most one)".into(),
+            UnlinkedReason::BelowCutoff => "the one-to-one optimum chose a partner for it, but the link's confidence is under the cut-off, so it was not written".into(),
+            UnlinkedReason::OnlyWeakCandidates => "it has candidates with some chance, but none likelier to be its partner than not, and its best one's other record is not taken either".into(),
+            UnlinkedReason::NotIdentified => "the fit cannot tell true from false pairs, so no link was written for anyone".into(),
+        }
     }
 }
 
-/// Writes links.csv, unlinked_left.csv, unlinked_right.csv, review.csv and summary.json.
+/// summary.json's `unlinked_reasons`: per side, each reason with its count.
+#[derive(Debug, Serialize)]
+pub struct UnlinkedCounts {
+    /// Left records.
+    pub left: std::collections::BTreeMap<String, usize>,
+    /// Right records.
+    pub right: std::collections::BTreeMap<String, usize>,
+}
+
+/// What became of each record and pair: its side's reason when unlinked, its most likely
+/// candidate, and each pair's status.
+pub struct Outcomes {
+    /// Per left record: None when linked, else why not.
+    pub left: Vec<Option<UnlinkedReason>>,
+    /// Per right record.
+    pub right: Vec<Option<UnlinkedReason>>,
+    /// Per left record, its candidate pair of highest confidence (the first such pair).
+    pub best_left: Vec<Option<usize>>,
+    /// Per right record.
+    pub best_right: Vec<Option<usize>>,
+    /// Per pair: written as a link.
+    pub is_link: Vec<bool>,
+    /// Per pair: chosen by the one-to-one optimum.
+    pub in_optimum: Vec<bool>,
+    /// Whether the fit is identified (without it no link is written).
+    pub identified: bool,
+}
+
+impl Outcomes {
+    /// Works out every record's outcome from the run.
+    pub fn new(prep: &Prepared, l: &Linkage) -> Outcomes {
+        let n_pairs = prep.cands.len();
+        let nl = prep.records.n_left();
+        let nr = prep.records.n_right();
+        let p = &l.confidence.p;
+        let mut best_left: Vec<Option<usize>> = vec![None; nl];
+        let mut best_right: Vec<Option<usize>> = vec![None; nr];
+        let better = |i: usize, cur: Option<usize>| cur.is_none_or(|j| p[i] > p[j]);
+        for i in 0..n_pairs {
+            let (a, b) = (prep.cands.left[i] as usize, prep.cands.right[i] as usize);
+            if better(i, best_left[a]) {
+                best_left[a] = Some(i);
+            }
+            if better(i, best_right[b]) {
+                best_right[b] = Some(i);
+            }
+        }
+        let mut is_link = vec![false; n_pairs];
+        let mut in_optimum = vec![false; n_pairs];
+        let (mut linked_l, mut linked_r) = (vec![false; nl], vec![false; nr]);
+        let (mut opt_l, mut opt_r) = (vec![false; nl], vec![false; nr]);
+        for &i in &l.links {
+            is_link[i] = true;
+            linked_l[prep.cands.left[i] as usize] = true;
+            linked_r[prep.cands.right[i] as usize] = true;
+        }
+        for &i in &l.matching.chosen {
+            in_optimum[i] = true;
+            opt_l[prep.cands.left[i] as usize] = true;
+            opt_r[prep.cands.right[i] as usize] = true;
+        }
+        let identified =
+            crate::reliability::identification_problems(&prep.fit, &prep.separations).is_empty();
+        let reason =
+            |linked: bool, opt: bool, best: Option<usize>, other_opt: &dyn Fn(usize) -> bool| {
+                if linked {
+                    return None;
+                }
+                let Some(i) = best else {
+                    return Some(UnlinkedReason::NoCandidate);
+                };
+                Some(if !identified {
+                    UnlinkedReason::NotIdentified
+                } else if opt {
+                    UnlinkedReason::BelowCutoff
+                } else if p[i] < PLAUSIBLE_CONFIDENCE {
+                    UnlinkedReason::NoPlausibleCandidate
+                } else if other_opt(i) {
+                    UnlinkedReason::LostToBetter
+                } else {
+                    UnlinkedReason::OnlyWeakCandidates
+                })
+            };
+        let left = (0..nl)
+            .map(|a| {
+                reason(linked_l[a], opt_l[a], best_left[a], &|i| {
+                    opt_r[prep.cands.right[i] as usize]
+                })
+            })
+            .collect();
+        let right = (0..nr)
+            .map(|b| {
+                reason(linked_r[b], opt_r[b], best_right[b], &|i| {
+                    opt_l[prep.cands.left[i] as usize]
+                })
+            })
+            .collect();
+        Outcomes {
+            left,
+            right,
+            best_left,
+            best_right,
+            is_link,
+            in_optimum,
+            identified,
+        }
+    }
+
+    /// Per reason, the count of one side's unlinked records, in [`UnlinkedReason::ALL`] order.
+    pub fn count_list(&self, left: bool) -> Vec<(UnlinkedReason, usize)> {
+        let side = if left { &self.left } else { &self.right };
+        UnlinkedReason::ALL
+            .iter()
+            .map(|&r| (r, side.iter().filter(|x| **x == Some(r)).count()))
+            .collect()
+    }
+
+    /// The same keyed by the reasons' text, for summary.json.
+    pub fn counts(&self, left: bool) -> std::collections::BTreeMap<String, usize> {
+        self.count_list(left)
+            .into_iter()
+            .map(|(r, n)| (r.as_str().to_string(), n))
+            .collect()
+    }
+
+    /// The status of pair `i` as review.csv writes it.
+    pub fn status(&self, i: usize) -> PairStatus {
+        if self.is_link[i] {
+            PairStatus::Linked
+        } else if !self.identified {
+            PairStatus::NotIdentified
+        } else if self.in_optimum[i] {
+            PairStatus::BelowCutoff
+        } else {
+            PairStatus::RunnerUp
+        }
+    }
+}
+
+/// A candidate pair's outcome (review.csv's `status`; report.html says it in words).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum PairStatus {
+    /// Written to links.csv.
+    Linked,
+    /// Chosen by the one-to-one optimum, confidence under the cut-off: not written.
+    BelowCutoff,
+    /// Not chosen: its records went to other pairs or stay unlinked.
+    RunnerUp,
+    /// The fit is not identified: no link is written.
+    NotIdentified,
+}
+
+impl PairStatus {
+    /// The status as written in review.csv.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            PairStatus::Linked => "linked",
+            PairStatus::BelowCutoff => "below cut-off",
+            PairStatus::RunnerUp => "runner-up",
+            PairStatus::NotIdentified => "not identified",
+        }
+    }
+
+    /// The status in plain words, for report.html.
+    pub fn words(self) -> &'static str {
+        match self {
+            PairStatus::Linked => "linked",
+            PairStatus::BelowCutoff => "not linked: below the cut-off",
+            PairStatus::RunnerUp => "not linked: not chosen one-to-one",
+            PairStatus::NotIdentified => "not linked: model not identified",
+        }
+    }
+}
+
+/// The run date, UTC, RFC 3339 to the second: from `SOURCE_DATE_EPOCH` when set (the
+/// reproducible-builds convention: whole seconds since 1970-01-01 UTC), else the clock.
+pub fn run_date() -> Result<String> {
+    let secs = match std::env::var("SOURCE_DATE_EPOCH") {
+        Ok(v) => v.trim().parse::<u64>().map_err(|_| {
+            crate::error::Error::config(format!(
+                "SOURCE_DATE_EPOCH is `{v}`; it must be a whole number of seconds since 1970-01-01 UTC"
+            ))
+        })?,
+        Err(_) => std::time::SystemTime::now()
+            .duration_since(std::time::UNIX_EPOCH)
+            .map_or(0, |d| d.as_secs()),
+    };
+    Ok(rfc3339(secs))
+}
+
+/// Seconds since 1970-01-01 UTC as `YYYY-MM-DDTHH:MM:SSZ` (proleptic Gregorian calendar;
+/// the days-to-civil conversion by 400-year eras, common practice).
+pub fn rfc3339(secs: u64) -> String {
+    let days = (secs / 86_400) as i64;
+    let rem = secs % 86_400;
+    let z = days + 719_468;
+    let era = z.div_euclid(146_097);
+    let doe = z - era * 146_097;
+    let yoe = (doe - doe / 1460 + doe / 36_524 - doe / 146_096) / 365;
+    let doy = doe - (365 * yoe + yoe / 4 - yoe / 100);
+    let mp = (5 * doy + 2) / 153;
+    let day = doy - (153 * mp + 2) / 5 + 1;
+    let month = if mp < 10 { mp + 3 } else { mp - 9 };
+    let year = yoe + era * 400 + i64::from(month <= 2);
+    format!(
+        "{year:04}-{month:02}-{day:02}T{:02}:{:02}:{:02}Z",
+        rem / 3600,
+        rem / 60 % 60,
+        rem % 60
+    )
+}
+
+/// Candidate pairs agreeing at the strongest level, per field.
+fn top_agreements(prep: &Prepared) -> Vec<f64> {
+    let mut top = vec![0.0; prep.config.field.len()];
+    for (pat, &n) in prep.counts.patterns.iter().zip(&prep.counts.counts) {
+        for (k, &l) in pat.iter().enumerate() {
+            if l == 0 {
+                top[k] += n;
+            }
+        }
+    }
+    top
+}
+
+/// What to do next, derived from the run: only the items that apply, each with its number.
+/// `link` is None for `assess`; with `outcomes` None and `link` set, the run was stopped.
+fn next_steps(
+    prep: &Prepared,
+    a: &Assessment,
+    link: Option<(&Linkage, &Outcomes, usize)>,
+) -> Vec<String> {
+    use crate::numbers::{cutoff, percent, ratio};
+    let mut out = Vec::new();
+    let serious = prep
+        .warnings
+        .iter()
+        .filter(|w| w.starts_with(crate::pipeline::SERIOUS_PREFIX))
+        .count();
+    if serious > 0 {
+        out.push(format!(
+            "Resolve the {serious} serious warning(s) listed first under Warnings before using any link: until then the results cannot be trusted."
+        ));
+    }
+    match a.verdict {
+        Verdict::Infeasible => out.push(format!(
+            "The verdict is infeasible (margin sqrt(d)·B = {}): do not act on links from these fields and this blocking. Add a field that tells people apart, tighten blocking so each record has fewer false candidates, or clean the data, then run again.",
+            ratio(a.margin)
+        )),
+        Verdict::Borderline => out.push(format!(
+            "The verdict is borderline (margin sqrt(d)·B = {}, forecast mismatch rate {}): expect a noticeable share of wrong links. Review more pairs (widen `review_band`), and consider a further distinguishing field or tighter blocking.",
+            ratio(a.margin),
+            a.forecast.as_ref().map_or("not computed".to_string(), |f| percent(f.error_rate))
+        )),
+        Verdict::Feasible => {}
+    }
+    if let Some(c) = prep.check.as_ref().filter(|c| c.flagged()) {
+        out.push(format!(
+            "The model check finds {} of the {:.0} linkable pairs away from where the model expects them: look for relatives or neighbours in the other table, duplicates inside a table, or fields that move together, before trusting the estimates.",
+            percent(c.misfit_matters),
+            c.pairs_matter
+        ));
+    }
+    if let Some((l, o, review)) = link {
+        if review > 0 {
+            let [lo, hi] = prep.config.link.review_band;
+            out.push(format!(
+                "Review the {review} pair(s) in review.csv (confidence from {} to {}) before acting on them.",
+                cutoff(lo),
+                cutoff(hi)
+            ));
+        }
+        let below = l.matching.chosen.len().saturating_sub(l.links.len());
+        if below > 0 && o.identified {
+            out.push(format!(
+                "{below} pair(s) chosen by the one-to-one optimum fell below the confidence cut-off {} and were not written; those in the review band are in review.csv. Lower the cut-off only after reviewing them.",
+                cutoff(l.cutoff)
+            ));
+        }
+        let none = |left: bool| {
+            o.count_list(left)
+                .iter()
+                .find(|(r, _)| *r == UnlinkedReason::NoCandidate)
+                .map_or(0, |x| x.1)
+        };
+        let (nl, nr) = (none(true), none(false));
+        if nl + nr > 0 {
+            let why = match l.completeness {
+                Some(c) if c.value < 0.98 => format!(
+                    "blocking is estimated to miss {} of the true pairs, so loosen blocking or add a pass (`dovetail tune` compares schemes)",
+                    percent(1.0 - c.value)
+                ),
+                Some(c) => format!(
+                    "blocking is estimated to keep {} of the true pairs, so most of them probably have no partner in the other table; to check, compare looser schemes with `dovetail tune`",
+                    percent(c.value)
+                ),
+                None => "loosen blocking if they should have partners (`dovetail tune` compares schemes)".to_string(),
+            };
+            out.push(format!(
+                "{nl} left and {nr} right record(s) had no candidate pair: {why}."
+            ));
+        }
+    }
+    let top = top_agreements(prep);
+    if !prep.cands.is_empty() {
+        for (k, f) in prep.config.field.iter().enumerate() {
+            if top[k] == 0.0 {
+                out.push(format!(
+                    "Field `{}` never agreed on any of the {} candidate pairs: check its codings on both sides (formats, code lists, columns) or leave it out.",
+                    f.name,
+                    prep.cands.len()
+                ));
+            } else if a.fields.get(k).is_some_and(|s| s.adds_nothing) {
+                out.push(format!(
+                    "Field `{}` adds nothing (B_k = {}, where 1 means no help): check its codings on both sides or leave it out.",
+                    f.name,
+                    ratio(a.fields[k].bhattacharyya)
+                ));
+            }
+        }
+    }
+    if let Some(d) = prep.duplicates {
+        for (side, pairs, n) in [
+            ("left", d.left_pairs, prep.records.n_left()),
+            ("right", d.right_pairs, prep.records.n_right()),
+        ] {
+            if n > 0 && pairs / n as f64 > crate::duplicates::WARN_SHARE {
+                out.push(format!(
+                    "About {pairs:.0} pairs of records inside the {side} table look like the same person: remove duplicates from it first, or check for relatives at one address."
+                ));
+            }
+        }
+    }
+    let other = prep.warnings.len() - serious;
+    if other > 0 {
+        out.push(format!(
+            "Read the {other} other warning(s) under Warnings: each says what it affects."
+        ));
+    }
+    if out.is_empty() {
+        out.push("Nothing in this run stands out. Before acting on the links, check a random sample of them by hand (a clerical audit) to confirm the estimated precision.".into());
+    }
+    out
+}
+
+/// Writes links.csv, unlinked_left.csv, unlinked_right.csv, review.csv, report.html and
+/// summary.json.
 pub fn write_linkage(dir: &Path, prep: &Prepared, l: &Linkage) -> Result<Vec<PathBuf>> {
-    let n_pairs = prep.cands.len();
+    let run_date = run_date()?;
     let names: Vec<&str> = prep.config.field.iter().map(|f| f.name.as_str()).collect();
+    let outcomes = Outcomes::new(prep, l);
     let mut out = OutputSet::for_run(dir, crate::folder::stamp_of(prep, "link"))?;
 
     out.write("links.csv", |w| {
@@ -591,7 +1030,7 @@ pub fn write_linkage(dir: &Path, prep: &Prepared, l: &Linkage) -> Result<Vec<Pat
                 prep.records.left_ids[prep.cands.left[i] as usize].clone(),
                 prep.records.right_ids[prep.cands.right[i] as usize].clone(),
                 num(prep.weight[i]),
-                num(l.confidence.p[i]),
+                confidence_csv(l.confidence.p[i], l.cutoff),
             ];
             row.extend((0..names.len()).map(|k| level_text(prep, i, k)));
             c.write_record(&row).map_err(to_io)?;
@@ -599,52 +1038,24 @@ pub fn write_linkage(dir: &Path, prep: &Prepared, l: &Linkage) -> Result<Vec<Pat
         c.flush()
     })?;
 
-    // Best candidate of every record, and membership of the optimum and of the links.
-    let nl = prep.records.n_left();
-    let nr = prep.records.n_right();
-    let mut best_l: Vec<Option<usize>> = vec![None; nl];
-    let mut best_r: Vec<Option<usize>> = vec![None; nr];
-    let better = |i: usize, cur: Option<usize>| match cur {
-        None => true,
-        Some(j) => l.confidence.p[i] > l.confidence.p[j],
-    };
-    for i in 0..n_pairs {
-        let (a, b) = (prep.cands.left[i] as usize, prep.cands.right[i] as usize);
-        if better(i, best_l[a]) {
-            best_l[a] = Some(i);
-        }
-        if better(i, best_r[b]) {
-            best_r[b] = Some(i);
-        }
-    }
-    let mut linked_l = vec![false; nl];
-    let mut linked_r = vec![false; nr];
-    let mut opt_l = vec![false; nl];
-    let mut opt_r = vec![false; nr];
-    let mut is_link = vec![false; n_pairs];
-    for &i in &l.links {
-        linked_l[prep.cands.left[i] as usize] = true;
-        linked_r[prep.cands.right[i] as usize] = true;
-        is_link[i] = true;
-    }
-    for &i in &l.matching.chosen {
-        opt_l[prep.cands.left[i] as usize] = true;
-        opt_r[prep.cands.right[i] as usize] = true;
-    }
     let unlinked = |out: &mut OutputSet, name: &str, left: bool| {
         out.write(name, |w| {
             let mut c = csv_writer(w);
             c.write_record(["id", "reason", "best_candidate", "best_confidence"])
                 .map_err(to_io)?;
-            let (ids, linked, opt, best) = if left {
-                (&prep.records.left_ids, &linked_l, &opt_l, &best_l)
+            let (ids, reasons, best) = if left {
+                (&prep.records.left_ids, &outcomes.left, &outcomes.best_left)
             } else {
-                (&prep.records.right_ids, &linked_r, &opt_r, &best_r)
+                (
+                    &prep.records.right_ids,
+                    &outcomes.right,
+                    &outcomes.best_right,
+                )
             };
             for r in 0..ids.len() {
-                if linked[r] {
+                let Some(reason) = reasons[r] else {
                     continue;
-                }
+                };
                 let (other, conf) = match best[r] {
                     Some(i) => {
                         let other = if left {
@@ -652,17 +1063,12 @@ pub fn write_linkage(dir: &Path, prep: &Prepared, l: &Linkage) -> Result<Vec<Pat
                         } else {
                             &prep.records.left_ids[prep.cands.left[i] as usize]
                         };
-                        (other.clone(), num(l.confidence.p[i]))
+                        (other.clone(), confidence_csv(l.confidence.p[i], l.cutoff))
                     }
                     None => (String::new(), String::new()),
                 };
-                c.write_record([
-                    ids[r].as_str(),
-                    unlinked_reason(best[r].is_some(), opt[r]),
-                    &other,
-                    &conf,
-                ])
-                .map_err(to_io)?;
+                c.write_record([ids[r].as_str(), reason.as_str(), &other, &conf])
+                    .map_err(to_io)?;
             }
             c.flush()
         })
@@ -670,19 +1076,7 @@ pub fn write_linkage(dir: &Path, prep: &Prepared, l: &Linkage) -> Result<Vec<Pat
     unlinked(&mut out, "unlinked_left.csv", true)?;
     unlinked(&mut out, "unlinked_right.csv", false)?;
 
-    let [lo, hi] = prep.config.link.review_band;
-    let mut review: Vec<usize> = (0..n_pairs)
-        .filter(|&i| (lo..=hi).contains(&l.confidence.p[i]))
-        .collect();
-    // Most useful first: the pairs whose confidence is closest to even odds, where a clerk's
-    // decision changes the most; then by weight, then by input order.
-    review.sort_by(|&x, &y| {
-        let dx = (l.confidence.p[x] - 0.5).abs();
-        let dy = (l.confidence.p[y] - 0.5).abs();
-        dx.total_cmp(&dy)
-            .then_with(|| prep.weight[y].total_cmp(&prep.weight[x]))
-            .then(x.cmp(&y))
-    });
+    let review = review_pairs(prep, l);
     out.write("review.csv", |w| {
         let mut c = csv_writer(w);
         let mut head: Vec<String> = [
@@ -704,18 +1098,11 @@ pub fn write_linkage(dir: &Path, prep: &Prepared, l: &Linkage) -> Result<Vec<Pat
         c.write_record(&head).map_err(to_io)?;
         for &i in &review {
             let (a, b) = (prep.cands.left[i] as usize, prep.cands.right[i] as usize);
-            let status = if is_link[i] {
-                "linked"
-            } else if l.matching.chosen.binary_search(&i).is_ok() {
-                "below cut-off"
-            } else {
-                "runner-up"
-            };
             let mut row = vec![
                 prep.records.left_ids[a].clone(),
                 prep.records.right_ids[b].clone(),
-                status.to_string(),
-                num(l.confidence.p[i]),
+                outcomes.status(i).as_str().to_string(),
+                confidence_csv(l.confidence.p[i], l.cutoff),
                 num(prep.weight[i]),
                 found_by(prep, i),
             ];
@@ -729,15 +1116,87 @@ pub fn write_linkage(dir: &Path, prep: &Prepared, l: &Linkage) -> Result<Vec<Pat
         c.flush()
     })?;
 
+    let steps = next_steps(prep, &l.assessment, Some((l, &outcomes, review.len())));
     let tune = read_tune(dir, prep);
-    let page = html::page(prep, l, &review, tune.as_deref());
+    let page = html::page(&html::Context {
+        prep,
+        linkage: l,
+        review: &review,
+        tune: tune.as_deref(),
+        outcomes: Some(&outcomes),
+        next_steps: &steps,
+        run_date: &run_date,
+    });
     out.write("report.html", |w| w.write_all(page.as_bytes()))?;
-    write_summary(&mut out, &summary(prep, &l.assessment, Some(l), "link"))?;
+    let extra = SummaryExtra {
+        run_date: &run_date,
+        outcomes: Some(&outcomes),
+        next_steps: steps,
+        stopped: false,
+    };
+    write_summary(
+        &mut out,
+        &summary(prep, &l.assessment, Some(l), "link", extra),
+    )?;
     out.commit()
+}
+
+/// For a run that `stop_if_infeasible` stopped: writes only summary.json and report.html,
+/// which say that no links were written because the verdict is infeasible, and why.
+pub fn write_stopped(dir: &Path, prep: &Prepared, l: &Linkage) -> Result<Vec<PathBuf>> {
+    let run_date = run_date()?;
+    let mut out = OutputSet::for_run(dir, crate::folder::stamp_of(prep, "link"))?;
+    let mut steps = vec![STOPPED_STEP.to_string()];
+    steps.extend(next_steps(prep, &l.assessment, None));
+    let tune = read_tune(dir, prep);
+    let page = html::page(&html::Context {
+        prep,
+        linkage: l,
+        review: &[],
+        tune: tune.as_deref(),
+        outcomes: None,
+        next_steps: &steps,
+        run_date: &run_date,
+    });
+    out.write("report.html", |w| w.write_all(page.as_bytes()))?;
+    let extra = SummaryExtra {
+        run_date: &run_date,
+        outcomes: None,
+        next_steps: steps,
+        stopped: true,
+    };
+    write_summary(&mut out, &summary(prep, &l.assessment, None, "link", extra))?;
+    out.commit()
+}
+
+/// The first step of a run stopped by `stop_if_infeasible`.
+const STOPPED_STEP: &str = "No links were written: the verdict is infeasible and `stop_if_infeasible` is set. Improve the fields or the blocking as the verdict's reasons say and run again; without `--stop-if-infeasible` the links would be written with their confidences, but they could not be relied on.";
+
+/// A confidence in the CSV files: six decimals, never on the wrong side of the cut-off.
+fn confidence_csv(p: f64, cut: f64) -> String {
+    crate::numbers::confidence(p, cut, 6)
+}
+
+/// The pairs in the review band, most useful first: those whose confidence is closest to
+/// even odds, where a clerk's decision changes the most; then by weight, then by input order.
+fn review_pairs(prep: &Prepared, l: &Linkage) -> Vec<usize> {
+    let [lo, hi] = prep.config.link.review_band;
+    let mut review: Vec<usize> = (0..prep.cands.len())
+        .filter(|&i| (lo..=hi).contains(&l.confidence.p[i]))
+        .collect();
+    review.sort_by(|&x, &y| {
+        let dx = (l.confidence.p[x] - 0.5).abs();
+        let dy = (l.confidence.p[y] - 0.5).abs();
+        dx.total_cmp(&dy)
+            .then_with(|| prep.weight[y].total_cmp(&prep.weight[x]))
+            .then(x.cmp(&y))
+    });
+    review
 }
 
 /// The feasibility verdict and per-field table as plain text for the terminal.
 pub fn assessment_text(prep: &Prepared, a: &Assessment) -> String {
+    use crate::numbers::{nats, percent, ratio};
     let mut t = String::new();
     t.push_str(&format!(
         "records: {} left, {} right; candidate pairs: {}; estimated true pairs: {:.0}\n",
@@ -747,8 +1206,14 @@ pub fn assessment_text(prep: &Prepared, a: &Assessment) -> String {
         a.estimated_true_pairs
     ));
     t.push_str(&format!(
-        "false candidates per record d = {:.3}; needed separation (1/2) ln d = {:.2} nats\n\n",
-        a.mean_false_degree, a.nats_needed
+        "false candidates per record d = {}; needed separation (1/2) ln d = {} nats{}\n\n",
+        ratio(a.mean_false_degree),
+        nats(a.nats_needed),
+        if a.mean_false_degree < 1.0 {
+            " (below 0 since d < 1: any fields meet the threshold)"
+        } else {
+            ""
+        }
     ));
     let width = prep
         .config
@@ -765,12 +1230,12 @@ pub fn assessment_text(prep: &Prepared, a: &Assessment) -> String {
     for (k, f) in a.fields.iter().enumerate() {
         let fv = &prep.records.fields[k];
         t.push_str(&format!(
-            "  {:<width$}  {:>9.4}  {:>8.2}  {:>7.1}%  {:>7.1}%{}\n",
+            "  {:<width$}  {:>9}  {:>8}  {:>8}  {:>8}{}\n",
             f.name,
-            f.bhattacharyya,
-            f.nats,
-            fv.left_missing_rate() * 100.0,
-            fv.right_missing_rate() * 100.0,
+            ratio(f.bhattacharyya),
+            nats(f.nats),
+            percent(fv.left_missing_rate()),
+            percent(fv.right_missing_rate()),
             if f.adds_nothing {
                 "  (adds nothing)"
             } else {
@@ -779,19 +1244,21 @@ pub fn assessment_text(prep: &Prepared, a: &Assessment) -> String {
         ));
     }
     t.push_str(&format!(
-        "  {:<width$}  {:>9.3e}  {:>8.2}\n\n",
-        "total", a.bhattacharyya, a.nats_supplied
+        "  {:<width$}  {:>9}  {:>8}\n\n",
+        "total",
+        ratio(a.bhattacharyya),
+        nats(a.nats_supplied)
     ));
     t.push_str(&format!(
-        "margin sqrt(d)·B = {:.4} (threshold 1)\n",
-        a.margin
+        "margin sqrt(d)·B = {} (threshold 1)\n",
+        ratio(a.margin)
     ));
     match &a.forecast {
         Some(f) => t.push_str(&format!(
-            "forecast mismatch rate: {:.2}% (interval {:.2}% to {:.2}%, {} replicates{})\n",
-            f.error_rate * 100.0,
-            f.interval[0] * 100.0,
-            f.interval[1] * 100.0,
+            "forecast mismatch rate: {} (interval {} to {}, {} replicates{})\n",
+            percent(f.error_rate),
+            percent(f.interval[0]),
+            percent(f.interval[1]),
             f.replicates,
             if f.subsampled { ", subsampled" } else { "" }
         )),
@@ -810,4 +1277,18 @@ pub fn assessment_text(prep: &Prepared, a: &Assessment) -> String {
         );
     }
     t
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn rfc3339_dates() {
+        // Epoch 0, a leap day and a well-known timestamp (date -u -d @SECONDS, GNU coreutils).
+        assert_eq!(rfc3339(0), "1970-01-01T00:00:00Z");
+        assert_eq!(rfc3339(951_782_400), "2000-02-29T00:00:00Z");
+        assert_eq!(rfc3339(1_700_000_000), "2023-11-14T22:13:20Z");
+        assert_eq!(rfc3339(4_102_444_799), "2099-12-31T23:59:59Z");
+    }
 }

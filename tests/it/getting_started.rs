@@ -208,6 +208,14 @@ keys = ["postcode", "given:first:1"]
     assert!(!err.contains("serious"), "{err}");
     // The unreadable date is taken as missing and said so, with its line (row 3 is line 5).
     assert!(err.contains("taken as missing (line 5)"), "{err}");
+    // The report tells a board how each side's values were read.
+    let html = std::fs::read_to_string(out.join("report.html")).unwrap();
+    assert!(
+        html.contains("left dates dmy, right dates mdy"),
+        "date orders"
+    );
+    assert!(html.contains("left values mapped: 1 → M, 2 → F, 9 → (missing)"));
+    assert!(html.contains("is not a date and was taken as missing"));
 
     // The tidy originals with the same fields, for comparison.
     let tidy = config

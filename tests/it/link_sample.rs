@@ -96,21 +96,28 @@ fn same_bytes_for_one_and_two_threads() {
     let mut outs = Vec::new();
     for threads in ["1", "2", "2"] {
         let out = dir.path().join(format!("out{}", outs.len()));
-        let o = run(&[
-            "link",
-            "--config",
-            cfg.to_str().unwrap(),
-            "--out",
-            out.to_str().unwrap(),
-            "--threads",
-            threads,
-            "--quiet",
-        ]);
+        // The run date comes from SOURCE_DATE_EPOCH (the reproducible-builds convention),
+        // so report.html and summary.json match to the byte.
+        let o = std::process::Command::new(bin())
+            .args([
+                "link",
+                "--config",
+                cfg.to_str().unwrap(),
+                "--out",
+                out.to_str().unwrap(),
+                "--threads",
+                threads,
+                "--quiet",
+            ])
+            .env("SOURCE_DATE_EPOCH", "1700000000")
+            .output()
+            .expect("run dovetail");
         assert!(o.status.success(), "{}", stderr(&o));
         outs.push(out);
     }
     // Every byte is the same, but for the manifest's record of this run's threads and
-    // seconds in summary.json (and so summary.json's hash in the folder's record).
+    // seconds in summary.json (and so summary.json's hash in the folder's record; the date
+    // is fixed by SOURCE_DATE_EPOCH).
     let read = |dir: &std::path::Path, name: &str| -> Vec<u8> {
         let bytes = std::fs::read(dir.join(name)).unwrap();
         if name == "outputs.json" {
@@ -159,7 +166,7 @@ fn assess_writes_only_the_summary() {
 fn too_few_fields_is_infeasible_and_can_stop() {
     // Two fields cannot identify a two-class mixture (common practice for latent class
     // models): the verdict is infeasible, no confident links are written, and with
-    // --stop-if-infeasible the run stops with exit status 3 and writes nothing.
+    // --stop-if-infeasible the run stops with exit status 3 and writes no link files.
     let dir = tempfile::tempdir().unwrap();
     let cfg = sample_config_text();
     let start = cfg.find("[[field]]\nname = \"birth\"").unwrap();
@@ -185,7 +192,24 @@ fn too_few_fields_is_infeasible_and_can_stop() {
     let out2 = dir.path().join("out2");
     let o = run_link(&path, &out2, &["--stop-if-infeasible"]);
     assert_eq!(o.status.code(), Some(3));
-    assert!(files_in(&out2).is_empty());
+    // Issue 18: only the summary and the report, which say why nothing was linked.
+    assert_eq!(
+        files_in(&out2),
+        ["outputs.json", "report.html", "summary.json"]
+    );
+    let html = std::fs::read_to_string(out2.join("report.html")).unwrap();
+    assert!(html.contains("No links were written"), "stopped report");
+    assert!(html.contains("<strong>infeasible</strong>"));
+    assert!(!html.contains("First pairs for clerical review"));
+    let s: serde_json::Value =
+        serde_json::from_slice(&std::fs::read(out2.join("summary.json")).unwrap()).unwrap();
+    assert_eq!(s["stopped_infeasible"], true);
+    assert_eq!(s["verdict"], "infeasible");
+    assert!(s["links"].is_null() && s["unlinked_reasons"].is_null());
+    assert!(s["next_steps"][0]
+        .as_str()
+        .unwrap()
+        .starts_with("No links were written"));
 }
 
 #[test]
