@@ -9,7 +9,7 @@ use crate::error::{Error, Result};
 use rayon::prelude::*;
 use std::collections::HashMap;
 use std::fs::File;
-use std::io::{BufWriter, Read, Write};
+use std::io::Read;
 use std::path::{Path, PathBuf};
 
 /// Largest accepted value of one cell, in bytes; bigger cells are an error, not a slowdown.
@@ -642,148 +642,7 @@ pub fn read_id_pairs(path: &Path) -> Result<Vec<(String, String, u64)>> {
     Ok(out)
 }
 
-/// A set of output files written to temporary names and renamed into place together.
-///
-/// Dropping an `OutputSet` without [`OutputSet::commit`] removes every temporary file, so a
-/// failure midway leaves no partial outputs.
-///
-/// A set made with [`OutputSet::for_run`] also settles the folder when it commits (see
-/// [`crate::folder`]): earlier runs' outputs are removed and `outputs.json` lists the files.
-#[derive(Debug)]
-pub struct OutputSet {
-    dir: PathBuf,
-    pending: Vec<(PathBuf, PathBuf)>,
-    files: Vec<crate::folder::OutputFile>,
-    stamp: Option<crate::folder::Stamp>,
-}
-
-/// A writer that hashes and counts what passes through it.
-struct Hashing<W: Write> {
-    inner: W,
-    hasher: sha2::Sha256,
-    bytes: u64,
-}
-
-impl<W: Write> Write for Hashing<W> {
-    fn write(&mut self, buf: &[u8]) -> std::io::Result<usize> {
-        use sha2::Digest;
-        let n = self.inner.write(buf)?;
-        self.hasher.update(&buf[..n]);
-        self.bytes += n as u64;
-        Ok(n)
-    }
-    fn flush(&mut self) -> std::io::Result<()> {
-        self.inner.flush()
-    }
-}
-
-impl OutputSet {
-    /// Starts a set of outputs in `dir`, creating it if needed.
-    pub fn new(dir: &Path) -> Result<OutputSet> {
-        std::fs::create_dir_all(dir).map_err(|e| {
-            Error::output(format!("cannot create output folder: {e}")).with_file(dir)
-        })?;
-        Ok(OutputSet {
-            dir: dir.to_path_buf(),
-            pending: Vec::new(),
-            files: Vec::new(),
-            stamp: None,
-        })
-    }
-
-    /// Starts the outputs of one command's run in `dir`: on commit, the folder keeps only
-    /// what belongs with them (see [`crate::folder`]).
-    pub fn for_run(dir: &Path, stamp: crate::folder::Stamp) -> Result<OutputSet> {
-        let mut out = OutputSet::new(dir)?;
-        out.stamp = Some(stamp);
-        Ok(out)
-    }
-
-    /// The output folder.
-    pub fn dir(&self) -> &Path {
-        &self.dir
-    }
-
-    /// Writes one file's full content through `fill`, into a temporary file for now.
-    pub fn write<F>(&mut self, name: &str, fill: F) -> Result<()>
-    where
-        F: FnOnce(&mut dyn Write) -> std::io::Result<()>,
-    {
-        let target = self.dir.join(name);
-        let tmp = self.dir.join(format!(".{name}.tmp-{}", std::process::id()));
-        let fail = |e: std::io::Error, path: &Path| {
-            let _ = std::fs::remove_file(path);
-            Error::output(format!(
-                "cannot write ({e}); no output files were left in place"
-            ))
-            .with_file(&target)
-        };
-        let file = File::create(&tmp).map_err(|e| fail(e, &tmp))?;
-        let mut w = Hashing {
-            inner: BufWriter::new(file),
-            hasher: sha2::Digest::new(),
-            bytes: 0,
-        };
-        fill(&mut w).map_err(|e| fail(e, &tmp))?;
-        let Hashing {
-            inner,
-            hasher,
-            bytes,
-        } = w;
-        let file = inner.into_inner().map_err(|e| fail(e.into_error(), &tmp))?;
-        file.sync_all().map_err(|e| fail(e, &tmp))?;
-        let digest = sha2::Digest::finalize(hasher);
-        self.files.push(crate::folder::OutputFile {
-            name: name.to_string(),
-            command: self.stamp.as_ref().map_or("", |s| s.command).to_string(),
-            bytes,
-            sha256: digest.iter().map(|b| format!("{b:02x}")).collect(),
-        });
-        self.pending.push((tmp, target));
-        Ok(())
-    }
-
-    /// Renames every temporary file into place.
-    pub fn commit(mut self) -> Result<Vec<PathBuf>> {
-        // A target that is a folder cannot be replaced: find out before moving anything.
-        if let Some((_, target)) = self.pending.iter().find(|(_, t)| t.is_dir()) {
-            return Err(Error::output(
-                "a folder of that name is in the way; no output files were left in place",
-            )
-            .with_file(target));
-        }
-        let pending = std::mem::take(&mut self.pending);
-        let mut done: Vec<PathBuf> = Vec::new();
-        for (k, (tmp, target)) in pending.iter().enumerate() {
-            if let Err(e) = std::fs::rename(tmp, target) {
-                // Take back what was moved and drop the rest, so no partial set remains.
-                for moved in &done {
-                    let _ = std::fs::remove_file(moved);
-                }
-                for (rest, _) in &pending[k..] {
-                    let _ = std::fs::remove_file(rest);
-                }
-                return Err(Error::output(format!(
-                    "cannot move output into place ({e}); no output files were left in place"
-                ))
-                .with_file(target));
-            }
-            done.push(target.clone());
-        }
-        if let Some(stamp) = &self.stamp {
-            crate::folder::settle(&self.dir, stamp, std::mem::take(&mut self.files))?;
-        }
-        Ok(done)
-    }
-}
-
-impl Drop for OutputSet {
-    fn drop(&mut self) {
-        for (tmp, _) in &self.pending {
-            let _ = std::fs::remove_file(tmp);
-        }
-    }
-}
+pub use crate::folder::OutputSet;
 
 #[cfg(test)]
 mod tests {
@@ -947,21 +806,5 @@ mod tests {
         assert_eq!(p.left_ids, vec!["x", "z"]);
         assert_eq!(p.right, vec![0, 0]);
         assert_eq!(p.weight, vec![1.5, 2.0]);
-    }
-
-    #[test]
-    fn output_set_leaves_nothing_on_failure() {
-        let dir = tempfile::tempdir().unwrap();
-        {
-            let mut out = OutputSet::new(dir.path()).unwrap();
-            out.write("a.csv", |w| w.write_all(b"x")).unwrap();
-            let failed = out.write("b.csv", |_| Err(std::io::Error::other("disk full")));
-            assert!(failed.is_err());
-        }
-        assert_eq!(std::fs::read_dir(dir.path()).unwrap().count(), 0);
-        let mut out = OutputSet::new(dir.path()).unwrap();
-        out.write("a.csv", |w| w.write_all(b"x")).unwrap();
-        out.commit().unwrap();
-        assert_eq!(std::fs::read(dir.path().join("a.csv")).unwrap(), b"x");
     }
 }

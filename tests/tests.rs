@@ -9,6 +9,8 @@ mod common;
 mod bad_input;
 #[path = "it/codings.rs"]
 mod codings;
+#[path = "it/crash_safety.rs"]
+mod crash_safety;
 #[path = "it/getting_started.rs"]
 mod getting_started;
 #[path = "it/honesty.rs"]

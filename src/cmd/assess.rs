@@ -13,6 +13,7 @@ pub struct Args {
 
 pub fn run(args: Args) -> Result<ExitCode> {
     let (config, progress) = args.run.start()?;
+    let _claim = dovetail::folder::claim(&args.run.out)?;
     let mut prep = pipeline::prepare(config, &progress)?;
     let assessment = pipeline::assess_only(&mut prep, &progress);
     progress.finish();

@@ -20,6 +20,7 @@ pub struct Args {
 
 pub fn run(args: Args) -> Result<ExitCode> {
     let (config, progress) = args.run.start()?;
+    let _claim = dovetail::folder::claim(&args.run.out)?;
     let stop = args.stop_if_infeasible || config.link.stop_if_infeasible;
     let mut prep = pipeline::prepare(config, &progress)?;
     let linkage = pipeline::link(&mut prep, &progress);

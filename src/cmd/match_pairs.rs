@@ -27,6 +27,7 @@ pub struct Args {
 
 pub fn run(args: Args) -> Result<ExitCode> {
     super::set_threads(args.threads)?;
+    let _claim = dovetail::folder::claim(&args.out)?;
     if !args.min_weight.is_finite() {
         return Err(Error::config("--min-weight must be a finite number"));
     }

@@ -82,6 +82,12 @@ pub fn run(args: Args) -> Result<ExitCode> {
         )
         .with_file(&args.run));
     }
+    // Scored into the run's folder: hold it, so no run replaces the links under us.
+    let _claim = if args.json.is_none() {
+        Some(dovetail::folder::claim(&args.run)?)
+    } else {
+        None
+    };
     let links = score::read_links(&links_path)?;
     let known = score::read_known(&args.known)?;
     let s = score::score(&links, &known, args.partial);

@@ -25,6 +25,7 @@ pub struct Args {
 
 pub fn run(args: Args) -> Result<ExitCode> {
     let (config, progress) = args.run.start()?;
+    let _claim = dovetail::folder::claim(&args.run.out)?;
     let prep = pipeline::prepare(config, &progress)?;
     progress.stage("tuning");
     let cfg = &prep.config;

@@ -1,0 +1,124 @@
+//! A run killed at any moment leaves its output folder consistent: the earlier complete set
+//! or the new complete set, never a mix, never a half-written file under a final name.
+
+use super::common::*;
+use std::path::Path;
+use std::process::{Command, Stdio};
+use std::time::{Duration, Instant};
+
+/// The folder holds exactly the dovetail files its record lists, each with its listed hash.
+fn assert_one_complete_set(out: &Path, moment: &str) {
+    let record: serde_json::Value = serde_json::from_slice(
+        &std::fs::read(out.join("outputs.json"))
+            .unwrap_or_else(|e| panic!("{moment}: no outputs.json: {e}")),
+    )
+    .unwrap_or_else(|e| panic!("{moment}: outputs.json does not parse: {e}"));
+    let mut listed: Vec<String> = Vec::new();
+    for f in record["files"].as_array().unwrap() {
+        let name = f["name"].as_str().unwrap().to_string();
+        let bytes = std::fs::read(out.join(&name))
+            .unwrap_or_else(|e| panic!("{moment}: {name} listed but missing: {e}"));
+        assert_eq!(
+            f["sha256"].as_str().unwrap(),
+            dovetail::io::sha256_hex(&bytes),
+            "{moment}: {name} is not the file its record lists"
+        );
+        listed.push(name);
+    }
+    listed.push("outputs.json".into());
+    listed.sort();
+    let present: Vec<String> = files_in(out)
+        .into_iter()
+        .filter(|n| dovetail::folder::OWNED.contains(&n.as_str()) || n.starts_with('.'))
+        .collect();
+    assert_eq!(listed, present, "{moment}: files beside the record's");
+}
+
+#[test]
+fn killed_runs_leave_one_complete_set() {
+    // 100,000 synth rows a side, killed (SIGKILL) at 30 seeded moments, 22 of them in the
+    // last stage and the writing. Two configs alternate, so the earlier and the new set
+    // differ.
+    let dir = tempfile::tempdir().unwrap();
+    let data = dir.path().join("data");
+    let o = run(&[
+        "synth",
+        "--rows",
+        "100000",
+        "--seed",
+        "4",
+        "--out",
+        data.to_str().unwrap(),
+    ]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let first = data.join("config.toml");
+    let text = std::fs::read_to_string(&first).unwrap();
+    let second = write(
+        &data,
+        "other.toml",
+        &text.replace("min_confidence = 0.5", "min_confidence = 0.7"),
+    );
+    let out = dir.path().join("out");
+    let start = |cfg: &Path| {
+        Command::new(bin())
+            .args(["link", "--config", cfg.to_str().unwrap()])
+            .args(["--out", out.to_str().unwrap(), "--threads", "2"])
+            .stdout(Stdio::null())
+            .stderr(Stdio::piped())
+            .spawn()
+            .expect("start dovetail")
+    };
+    // One complete run measures when the last stage starts and when the run ends.
+    let clock = Instant::now();
+    let mut child = start(&first);
+    let mut last_stage = Duration::ZERO;
+    {
+        use std::io::BufRead;
+        let err = child.stderr.take().unwrap();
+        for line in std::io::BufReader::new(err).lines().map_while(|l| l.ok()) {
+            if line.contains("stage: completeness") {
+                last_stage = clock.elapsed();
+            }
+        }
+    }
+    assert!(child.wait().unwrap().success());
+    let whole = clock.elapsed();
+    assert_one_complete_set(&out, "after a complete run");
+
+    let mut seed: u64 = 0x2545_F491_4F6C_DD1D;
+    let mut uniform = || {
+        seed ^= seed << 13;
+        seed ^= seed >> 7;
+        seed ^= seed << 17;
+        (seed >> 11) as f64 / (1u64 << 53) as f64
+    };
+    let record = || std::fs::read(out.join("outputs.json")).unwrap();
+    let (mut kept, mut landed) = (0, 0);
+    for k in 0..30 {
+        let before = record();
+        let at = if k % 4 == 3 {
+            last_stage.mul_f64(uniform())
+        } else {
+            last_stage + (whole - last_stage).mul_f64(1.2 * uniform())
+        };
+        let mut child = start(if k % 2 == 0 { &second } else { &first });
+        std::thread::sleep(at);
+        let _ = child.kill();
+        let _ = child.wait();
+        assert_one_complete_set(&out, &format!("kill {k} at {:.2}s", at.as_secs_f64()));
+        if record() == before {
+            kept += 1;
+        } else {
+            landed += 1;
+        }
+    }
+    // The moments straddle the landing: some kills came before it, some after.
+    eprintln!("30 kills: {kept} left the earlier set, {landed} the new one");
+    assert!(kept > 0 && landed > 0, "kept {kept}, landed {landed}");
+    // The next complete run cleans up whatever the killed runs left beside the folder.
+    let o = run_link(&first, &out, &["--quiet"]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    assert_one_complete_set(&out, "after the last run");
+    let beside: Vec<String> = files_in(dir.path());
+    assert_eq!(beside, ["data", "out"], "left beside the folder");
+}
