@@ -122,3 +122,52 @@ fn killed_runs_leave_one_complete_set() {
     let beside: Vec<String> = files_in(dir.path());
     assert_eq!(beside, ["data", "out"], "left beside the folder");
 }
+
+#[test]
+fn a_second_run_into_a_busy_folder_stops_and_inputs_are_left_alone() {
+    // While one run holds its folder, a second run into it stops at once with a clear
+    // error; neither changes a byte of the input files (SHA-256 before and after).
+    let dir = tempfile::tempdir().unwrap();
+    let data = dir.path().join("data");
+    let o = run(&[
+        "synth",
+        "--rows",
+        "40000",
+        "--seed",
+        "6",
+        "--out",
+        data.to_str().unwrap(),
+    ]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let hash = |name: &str| dovetail::io::sha256_hex(&std::fs::read(data.join(name)).unwrap());
+    let before = [hash("left.csv"), hash("right.csv"), hash("config.toml")];
+    let cfg = data.join("config.toml");
+    let out = dir.path().join("out");
+    let mut first = Command::new(bin())
+        .args(["link", "--config", cfg.to_str().unwrap()])
+        .args(["--out", out.to_str().unwrap(), "--quiet"])
+        .spawn()
+        .expect("start dovetail");
+    // Wait until the first run holds the folder (it creates it when it claims it).
+    let clock = Instant::now();
+    while !out.exists() && clock.elapsed() < Duration::from_secs(20) {
+        std::thread::sleep(Duration::from_millis(20));
+    }
+    let second = run_link(&cfg, &out, &["--quiet"]);
+    let still_running = first.try_wait().unwrap().is_none();
+    assert!(first.wait().unwrap().success());
+    if still_running {
+        assert!(!second.status.success());
+        let e = stderr(&second);
+        assert!(
+            e.contains("another dovetail run is writing to this folder"),
+            "{e}"
+        );
+        assert_eq!(e.trim().lines().count(), 1, "{e}");
+    }
+    assert_one_complete_set(&out, "after both runs");
+    assert_eq!(
+        before,
+        [hash("left.csv"), hash("right.csv"), hash("config.toml")]
+    );
+}
