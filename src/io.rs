@@ -140,12 +140,100 @@ pub struct ReadSpec {
 /// Reads a table from a file; see [`read_table_from`]. The file is read once; its bytes are
 /// hashed and parsed from memory.
 pub fn read_table(path: &Path, spec: &ReadSpec) -> Result<Table> {
-    let mut file =
-        File::open(path).map_err(|e| Error::input(format!("cannot open: {e}")).with_file(path))?;
+    let bytes = read_file(path, false)?;
+    read_table_from(&bytes, path, spec)
+}
+
+/// The whole content of an input file. A folder is refused; so is a named pipe, socket or
+/// device unless `pipes` (opening a named pipe waits for a writer, which would hang a run
+/// whose config names one by mistake; `--pairs <(...)` on the command line is a pipe with a
+/// writer already).
+fn read_file(path: &Path, pipes: bool) -> Result<Vec<u8>> {
+    let fail = |m: String| Error::input(m).with_file(path);
+    let meta = std::fs::metadata(path).map_err(|e| fail(format!("cannot open: {e}")))?;
+    let kind = meta.file_type();
+    if kind.is_dir() {
+        return Err(fail(
+            "is a folder, not a file: give the path of the CSV file itself".to_string(),
+        ));
+    }
+    if !(kind.is_file() || pipes && is_pipe(&kind)) {
+        let why = if pipes {
+            ""
+        } else {
+            ": tables are read from regular files"
+        };
+        return Err(fail(format!(
+            "is {}, not a regular file{why}",
+            special_kind(&kind)
+        )));
+    }
+    let mut file = File::open(path).map_err(|e| fail(format!("cannot open: {e}")))?;
     let mut bytes = Vec::new();
     file.read_to_end(&mut bytes)
-        .map_err(|e| Error::input(format!("cannot read: {e}")).with_file(path))?;
-    read_table_from(&bytes, path, spec)
+        .map_err(|e| fail(format!("cannot read: {e}")))?;
+    Ok(bytes)
+}
+
+#[cfg(unix)]
+fn is_pipe(kind: &std::fs::FileType) -> bool {
+    std::os::unix::fs::FileTypeExt::is_fifo(kind)
+}
+
+#[cfg(not(unix))]
+fn is_pipe(_: &std::fs::FileType) -> bool {
+    false
+}
+
+/// What a file that is neither a folder nor a regular file is, for messages.
+fn special_kind(kind: &std::fs::FileType) -> &'static str {
+    #[cfg(unix)]
+    {
+        use std::os::unix::fs::FileTypeExt;
+        if kind.is_fifo() {
+            return "a named pipe (FIFO)";
+        }
+        if kind.is_socket() {
+            return "a socket";
+        }
+        if kind.is_block_device() || kind.is_char_device() {
+            return "a device";
+        }
+    }
+    let _ = kind;
+    "a special file"
+}
+
+/// The error for bytes that are plainly not a CSV text file (a compressed file, a
+/// spreadsheet, UTF-16 text), from their first bytes; `None` when they may be CSV.
+fn not_csv(bytes: &[u8]) -> Option<Error> {
+    let msg = if bytes.starts_with(&[0x1F, 0x8B]) {
+        "the file is gzip-compressed (it starts with the gzip signature); decompress it first (`gunzip`)"
+    } else if bytes.starts_with(b"PK\x03\x04") || bytes.starts_with(b"PK\x05\x06") {
+        "the file is a zip archive, as an .xlsx or .ods spreadsheet is; export the sheet as CSV (or unzip the archive)"
+    } else if bytes.starts_with(&[0xD0, 0xCF, 0x11, 0xE0, 0xA1, 0xB1, 0x1A, 0xE1]) {
+        "the file is an old-style Office document (an .xls spreadsheet?); save the sheet as CSV"
+    } else if bytes.starts_with(&[0xFF, 0xFE]) || bytes.starts_with(&[0xFE, 0xFF]) {
+        "the file is UTF-16 text (it starts with a UTF-16 byte-order mark), which is not read; convert it to UTF-8 (e.g. `iconv -f UTF-16 -t UTF-8`) or save it as \"CSV UTF-8\""
+    } else if bytes.starts_with(b"BZh") && bytes.get(3).is_some_and(u8::is_ascii_digit) {
+        "the file is bzip2-compressed; decompress it first (`bunzip2`)"
+    } else if bytes.starts_with(&[0xFD, b'7', b'z', b'X', b'Z', 0x00]) {
+        "the file is xz-compressed; decompress it first (`unxz`)"
+    } else if bytes.starts_with(&[0x28, 0xB5, 0x2F, 0xFD]) {
+        "the file is zstd-compressed; decompress it first (`unzstd`)"
+    } else {
+        return None;
+    };
+    Some(Error::input(msg))
+}
+
+/// The error for a header holding a NUL byte: text files have none, so the file is binary or
+/// UTF-16 without a byte-order mark.
+fn nul_in_header() -> Error {
+    Error::input(
+        "the header holds NUL bytes: the file is binary or UTF-16 text without a byte-order mark; convert it to UTF-8 CSV",
+    )
+    .with_line(1)
 }
 
 /// Reads a table from CSV bytes; `label` names the source in errors.
@@ -232,10 +320,11 @@ impl CellColumn {
         &self.bytes[start..self.ends[row]]
     }
 
-    /// The trimmed text of a cell; `None` when it is too long or not UTF-8.
+    /// The trimmed text of a cell; `None` when it is too long, holds a NUL byte or is not
+    /// UTF-8.
     fn text(&self, row: usize) -> Option<&str> {
         let raw = self.raw(row);
-        if raw.len() > MAX_CELL_BYTES {
+        if raw.len() > MAX_CELL_BYTES || raw.contains(&0) {
             return None;
         }
         std::str::from_utf8(raw).ok().map(str::trim)
@@ -268,6 +357,8 @@ impl CellColumn {
             ))
             .with_line(line)
             .with_column(col)
+        } else if raw.contains(&0) {
+            nul_in_cell(line, col)
         } else {
             not_utf8(line, col)
         }
@@ -276,6 +367,9 @@ impl CellColumn {
 
 fn parse_table(bytes: &[u8], label: &Path, spec: &ReadSpec) -> Result<Parsed> {
     let at = |e: Error| e.with_file(label);
+    if let Some(e) = not_csv(bytes) {
+        return Err(at(e));
+    }
     let owned;
     let mut data: &[u8] = match spec.encoding {
         Encoding::Utf8 => bytes,
@@ -300,6 +394,9 @@ fn parse_table(bytes: &[u8], label: &Path, spec: &ReadSpec) -> Result<Parsed> {
     let header = rdr.byte_headers().map_err(|e| at(csv_error(e)))?.clone();
     let mut names = Vec::with_capacity(header.len());
     for (i, h) in header.iter().enumerate() {
+        if h.contains(&0) {
+            return Err(at(nul_in_header()));
+        }
         let name = std::str::from_utf8(h).map_err(|_| at(not_utf8(1, &format!("#{}", i + 1))))?;
         names.push(name.trim().to_string());
     }
@@ -430,7 +527,8 @@ fn next_row(
 }
 
 /// Line numbers of records from their byte offsets, counted incrementally. The csv crate's
-/// own line count is one short after a CRLF header, so we count newlines ourselves.
+/// own line count is one short after a CRLF header and ignores lone `\r` endings, so we count
+/// line breaks ourselves.
 #[derive(Default)]
 struct LineCounter {
     offset: usize,
@@ -448,14 +546,26 @@ impl LineCounter {
         }
         let start = start.min(data.len());
         if start >= self.offset {
-            self.line += data[self.offset..start]
-                .iter()
-                .filter(|&&b| b == b'\n')
-                .count() as u64;
+            self.line += line_breaks(&data[self.offset..start]);
             self.offset = start;
         }
         self.line + 1
     }
+}
+
+/// Line breaks in some bytes: `\n`, `\r\n` and a lone `\r` (old Mac files, which the csv
+/// reader also takes as ends of records) each count once.
+fn line_breaks(bytes: &[u8]) -> u64 {
+    let lf = bytes.iter().filter(|&&b| b == b'\n').count();
+    if !bytes.contains(&b'\r') {
+        return lf as u64;
+    }
+    let lone_cr = bytes
+        .iter()
+        .enumerate()
+        .filter(|&(i, &b)| b == b'\r' && bytes.get(i + 1) != Some(&b'\n'))
+        .count();
+    (lf + lone_cr) as u64
 }
 
 /// SHA-256 of some bytes, in lower-case hex.
@@ -463,6 +573,14 @@ pub fn sha256_hex(bytes: &[u8]) -> String {
     use sha2::{Digest, Sha256};
     let digest = Sha256::digest(bytes);
     digest.iter().map(|b| format!("{b:02x}")).collect()
+}
+
+fn nul_in_cell(line: u64, col: &str) -> Error {
+    Error::input(
+        "value holds a NUL byte (0x00), which text never does: the file may be binary, UTF-16 or damaged",
+    )
+    .with_line(line)
+    .with_column(col)
 }
 
 fn not_utf8(line: u64, col: &str) -> Error {
@@ -504,14 +622,16 @@ pub struct ScoredPairs {
 
 /// Reads a CSV of scored pairs with columns `left_id,right_id,weight` (others ignored).
 pub fn read_scored_pairs(path: &Path) -> Result<ScoredPairs> {
-    let bytes = std::fs::read(path)
-        .map_err(|e| Error::input(format!("cannot read: {e}")).with_file(path))?;
+    let bytes = read_file(path, true)?;
     read_scored_pairs_from(&bytes, path)
 }
 
 /// Reads scored pairs from CSV bytes; `label` names the source in errors.
 pub fn read_scored_pairs_from(bytes: &[u8], label: &Path) -> Result<ScoredPairs> {
     let at = |e: Error| e.with_file(label);
+    if let Some(e) = not_csv(bytes) {
+        return Err(at(e));
+    }
     let data = bytes.strip_prefix(b"\xEF\xBB\xBF").unwrap_or(bytes);
     if data.iter().all(|b| b.is_ascii_whitespace()) {
         return Err(at(Error::input(
@@ -520,6 +640,9 @@ pub fn read_scored_pairs_from(bytes: &[u8], label: &Path) -> Result<ScoredPairs>
     }
     let mut rdr = csv::ReaderBuilder::new().flexible(true).from_reader(data);
     let header = rdr.byte_headers().map_err(|e| at(csv_error(e)))?.clone();
+    if header.iter().any(|h| h.contains(&0)) {
+        return Err(at(nul_in_header()));
+    }
     let names: Vec<String> = header
         .iter()
         .map(|h| String::from_utf8_lossy(h).trim().to_string())
@@ -611,33 +734,49 @@ impl IdMap {
 
 /// Reads known pairs (`left_id,right_id`, other columns ignored) with the line of each.
 pub fn read_id_pairs(path: &Path) -> Result<Vec<(String, String, u64)>> {
-    let bytes = std::fs::read(path)
-        .map_err(|e| Error::input(format!("cannot read: {e}")).with_file(path))?;
-    let at = |e: Error| e.with_file(path);
-    let data = bytes.strip_prefix(b"\xEF\xBB\xBF").unwrap_or(&bytes);
+    let bytes = read_file(path, true)?;
+    read_id_pairs_from(&bytes, path)
+}
+
+/// Reads known pairs from CSV bytes (see [`read_id_pairs`]); `label` names the source in
+/// errors.
+pub fn read_id_pairs_from(bytes: &[u8], label: &Path) -> Result<Vec<(String, String, u64)>> {
+    let at = |e: Error| e.with_file(label);
+    if let Some(e) = not_csv(bytes) {
+        return Err(at(e));
+    }
+    let data = bytes.strip_prefix(b"\xEF\xBB\xBF").unwrap_or(bytes);
     let mut rdr = csv::ReaderBuilder::new().flexible(true).from_reader(data);
-    let header = rdr.headers().map_err(|e| at(csv_error(e)))?.clone();
+    let header = rdr.byte_headers().map_err(|e| at(csv_error(e)))?.clone();
+    if header.iter().any(|h| h.contains(&0)) {
+        return Err(at(nul_in_header()));
+    }
     let col = |want: &str| {
-        header.iter().position(|h| h.trim() == want).ok_or_else(|| {
-            at(Error::input(format!(
-                "column `{want}` not found in the header; it must name left_id and right_id"
-            ))
-            .with_line(1))
-        })
+        header
+            .iter()
+            .position(|h| h.trim_ascii() == want.as_bytes())
+            .ok_or_else(|| {
+                at(Error::input(format!(
+                    "column `{want}` not found in the header; it must name left_id and right_id"
+                ))
+                .with_line(1))
+            })
     };
     let (li, ri) = (col("left_id")?, col("right_id")?);
     let mut out = Vec::new();
     let mut lines_at = LineCounter::default();
-    let mut record = csv::StringRecord::new();
-    loop {
-        match rdr.read_record(&mut record) {
-            Ok(true) => {}
-            Ok(false) => break,
-            Err(e) => return Err(at(csv_error(e))),
-        }
+    let mut record = csv::ByteRecord::new();
+    while rdr
+        .read_byte_record(&mut record)
+        .map_err(|e| at(csv_error(e)))?
+    {
         let line = lines_at.line(data, record.position());
-        let get = |i: usize| record.get(i).unwrap_or("").trim().to_string();
-        out.push((get(li), get(ri), line));
+        let get = |i: usize, c: &str| -> Result<String> {
+            let raw = record.get(i).unwrap_or(b"");
+            let s = std::str::from_utf8(raw).map_err(|_| at(not_utf8(line, c)))?;
+            Ok(s.trim().to_string())
+        };
+        out.push((get(li, "left_id")?, get(ri, "right_id")?, line));
     }
     Ok(out)
 }
@@ -753,6 +892,58 @@ mod tests {
         assert_eq!(
             err(long.as_bytes(), &["name"]),
             format!("t.csv: line 2: column name: value is {} bytes long, over the limit of {MAX_CELL_BYTES}", MAX_CELL_BYTES + 1)
+        );
+    }
+
+    #[test]
+    fn lone_cr_endings_count_as_lines() {
+        // The csv reader ends records at a lone CR (old Mac files); lines counted by LF alone
+        // made every row of such a file "line 1".
+        let t = read(b"id,name\r1,a\r2,\"b\rc\"\r\r3,d\n4,e\r\n5,f", &["name"]).unwrap();
+        assert_eq!(t.ids, vec!["1", "2", "3", "4", "5"]);
+        assert_eq!(t.lines, vec![2, 3, 6, 7, 8]);
+        assert_eq!(
+            err(b"id,name\r1,a\r1,b\r", &["name"]),
+            "t.csv: line 3: column id: duplicate id (first seen on line 2)"
+        );
+        let k = read_id_pairs_from(b"left_id,right_id\ra,b\rc,d\r", Path::new("k")).unwrap();
+        assert_eq!(
+            k,
+            vec![("a".into(), "b".into(), 2), ("c".into(), "d".into(), 3)]
+        );
+    }
+
+    #[test]
+    fn binary_files_and_nul_bytes_are_named() {
+        assert!(err(b"\x1F\x8B\x08\x00rest", &[]).starts_with("t.csv: the file is gzip"));
+        assert!(err(b"PK\x03\x04rest", &[]).contains("zip archive, as an .xlsx"));
+        assert!(err(b"\xFF\xFEi\x00d\x00", &[]).contains("UTF-16"));
+        assert!(err(b"i\x00d\x00\n\x00", &[]).starts_with("t.csv: line 1: the header holds NUL"));
+        assert!(err(b"id,name\n1,a\x00b\n", &["name"])
+            .starts_with("t.csv: line 2: column name: value holds a NUL byte"));
+        let p = |b: &[u8]| {
+            read_scored_pairs_from(b, Path::new("p"))
+                .err()
+                .map(|e| e.to_string())
+        };
+        assert!(p(b"PK\x03\x04").is_some_and(|e| e.contains("zip archive")));
+        let k = |b: &[u8]| {
+            read_id_pairs_from(b, Path::new("k"))
+                .err()
+                .map(|e| e.to_string())
+        };
+        assert!(k(b"\x1F\x8B\x08").is_some_and(|e| e.contains("gzip")));
+        assert!(k(b"left_id,right_id\r\na,b\r\n\xE9,c\r\n")
+            .is_some_and(|e| e.starts_with("k: line 3: column left_id: text is not valid UTF-8")));
+    }
+
+    #[test]
+    fn folders_and_pipes_are_refused() {
+        let dir = tempfile::tempdir().unwrap();
+        let e = read_table(dir.path(), &spec(&[])).unwrap_err().to_string();
+        assert!(
+            e.ends_with("is a folder, not a file: give the path of the CSV file itself"),
+            "{e}"
         );
     }
 

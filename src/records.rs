@@ -199,6 +199,12 @@ pub fn build(
     })
 }
 
+/// A number field's value: a decimal or scientific number (`42`, `-1.5`, `2e3`) that is
+/// finite; `None` for anything else (text, `inf`, `NaN`, out of range).
+pub fn parse_number(v: &str) -> Option<f64> {
+    v.parse::<f64>().ok().filter(|x| x.is_finite())
+}
+
 /// A fast hash with a fixed seed: the keys come from the user's own files, and a fixed seed
 /// keeps runs repeatable.
 type FastMap<K, V> = HashMap<K, V, foldhash::fast::FixedState>;
@@ -248,9 +254,9 @@ impl SideCoding {
                 Some(d) => Coded::Date(d.iso(), d),
                 None => Coded::Unparsed,
             },
-            Method::Number => match v.parse::<f64>() {
-                Ok(x) if x.is_finite() => Coded::Number(v, x),
-                _ => Coded::Unparsed,
+            Method::Number => match parse_number(v) {
+                Some(x) => Coded::Number(v, x),
+                None => Coded::Unparsed,
             },
             _ => Coded::Text(v),
         }

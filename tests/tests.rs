@@ -15,6 +15,8 @@ mod crash_safety;
 mod getting_started;
 #[path = "it/honesty.rs"]
 mod honesty;
+#[path = "it/hostile.rs"]
+mod hostile;
 #[path = "it/link_sample.rs"]
 mod link_sample;
 #[path = "it/match_cmd.rs"]
