@@ -19,6 +19,9 @@ pub enum ErrorKind {
     /// The data cannot support the requested run (e.g. an infeasible linkage with
     /// `stop_if_infeasible`).
     Infeasible,
+    /// The run's estimated peak memory is over its memory budget; it stopped before making
+    /// any candidate pair.
+    OverBudget,
 }
 
 /// An error with the context needed to find its cause in the user's files.

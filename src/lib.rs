@@ -9,6 +9,7 @@
 //! only parses arguments and prints.
 
 pub mod block;
+pub mod budget;
 pub mod codings;
 pub mod compare;
 pub mod config;

@@ -1,5 +1,6 @@
 //! The `dovetail` binary: parses arguments, calls the library, prints one error line and picks
-//! the exit code (0 success, 1 error, 2 usage, 3 stopped because the linkage is infeasible).
+//! the exit code (0 success, 1 error, 2 usage, 3 stopped because the linkage is infeasible, 4 stopped
+//! before blocking because the estimated peak memory is over the memory budget).
 
 mod cmd;
 
@@ -13,6 +14,7 @@ fn main() -> ExitCode {
         Err(e) => {
             let code = match e.kind() {
                 dovetail::ErrorKind::Infeasible => 3,
+                dovetail::ErrorKind::OverBudget => 4,
                 _ => 1,
             };
             eprintln!("error: {e}");

@@ -5,6 +5,7 @@
 //! [`assess_only`].
 
 use crate::block::{self, Candidates, Pass, PassStats};
+use crate::budget::{Budget, PassLabel};
 use crate::codings;
 use crate::compare::{self, Comparison, PatternCounts, MISSING_LEVEL};
 use crate::config::Config;
@@ -346,6 +347,20 @@ pub fn passes_from(
         .collect())
 }
 
+/// The passes as the memory budget's message names them (`blocks` and `passes` in the same
+/// order, as [`passes_from`] gives them).
+pub fn pass_labels(blocks: &[crate::config::BlockSpec], passes: &[Pass]) -> Vec<PassLabel> {
+    passes
+        .iter()
+        .zip(blocks)
+        .map(|(p, b)| PassLabel {
+            name: p.name.clone(),
+            keys: b.keys.join(" + "),
+            window: p.window.is_some(),
+        })
+        .collect()
+}
+
 /// Leaves out every field that is empty in every row of one table (it could carry no
 /// evidence and would only confuse the fit), and every blocking pass that uses one or a
 /// key-only column empty in one table, with a warning for each.
@@ -409,8 +424,18 @@ fn drop_empty_fields(
     Ok(config)
 }
 
-/// Reads, blocks, compares and fits.
+/// Reads, blocks, compares and fits, with no memory budget.
 pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
+    prepare_within(config, progress, &Budget::Off)
+}
+
+/// Reads, blocks, compares and fits; with a budget, stops before making any pair when the
+/// blocking plan's memory estimate is over it (see [`crate::budget::MemoryBudget::check`]).
+pub fn prepare_within(
+    config: Config,
+    progress: &dyn Progress,
+    budget: &Budget,
+) -> Result<Prepared> {
     let mut timings = Vec::new();
     let mut warnings = Vec::new();
     let mut clock = Clock::new();
@@ -435,6 +460,9 @@ pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
     let plan = block::plan(&records, &passes);
     let memory = MemoryEstimate::new(left.bytes + right.bytes, plan.pairs_per_pass());
     progress.note(&memory.text());
+    if let Some(budget) = budget.resolve() {
+        budget.check(&memory, &pass_labels(&config.block, &passes))?;
+    }
     let (cands, pass_stats) = plan.candidates(&records);
     for s in &pass_stats {
         for (key, size) in &s.skipped {

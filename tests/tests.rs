@@ -21,6 +21,8 @@ mod hostile;
 mod link_sample;
 #[path = "it/match_cmd.rs"]
 mod match_cmd;
+#[path = "it/memory_budget.rs"]
+mod memory_budget;
 #[path = "it/outputs_folder.rs"]
 mod outputs_folder;
 #[path = "it/reliability_synth.rs"]

@@ -17,7 +17,15 @@ use std::process::ExitCode;
 /// One-to-one record linkage of two tables of people, with a feasibility check and a
 /// confidence for every link.
 #[derive(Debug, Parser)]
-#[command(name = "dovetail", version, about)]
+#[command(
+    name = "dovetail",
+    version,
+    about,
+    after_help = "Exit status: 0 success; 1 error (config, input or output); 2 usage (a bad \
+                  option or value); 3 stopped because the linkage is infeasible \
+                  (--stop-if-infeasible); 4 stopped before blocking because the estimated \
+                  peak memory is over --memory-budget."
+)]
 pub struct Cli {
     #[command(subcommand)]
     command: Command,
@@ -60,6 +68,27 @@ pub struct RunArgs {
     /// Print nothing but errors.
     #[arg(long)]
     pub quiet: bool,
+    /// Stop before blocking (exit status 4, nothing written) when the estimated peak memory is
+    /// over SIZE: e.g. 8G, 500M (powers of 1000) or 2GiB (powers of 1024); `0` or `none`
+    /// switches the check off. Default: 80% of the smallest of the cgroup's memory limit, the
+    /// available memory (MemAvailable) and the address-space limit (ulimit -v); no default
+    /// budget outside Linux.
+    #[arg(long, value_name = "SIZE", value_parser = parse_budget)]
+    pub memory_budget: Option<BudgetOpt>,
+}
+
+/// `--memory-budget` as given: the parsed size and its text, for messages.
+#[derive(Debug, Clone)]
+pub struct BudgetOpt {
+    arg: dovetail::budget::BudgetArg,
+    text: String,
+}
+
+fn parse_budget(text: &str) -> std::result::Result<BudgetOpt, String> {
+    Ok(BudgetOpt {
+        arg: dovetail::budget::parse_size(text)?,
+        text: text.trim().to_string(),
+    })
 }
 
 impl RunArgs {
@@ -68,6 +97,12 @@ impl RunArgs {
         set_threads(self.threads)?;
         let config = dovetail::config::Config::from_path(&self.config)?;
         Ok((config, StageLines::new(self.quiet)))
+    }
+
+    /// The memory budget in force (see [`dovetail::budget::budget_for`]).
+    pub fn budget(&self) -> dovetail::budget::Budget {
+        let opt = self.memory_budget.as_ref();
+        dovetail::budget::budget_for(opt.map(|o| o.arg), opt.map(|o| o.text.as_str()))
     }
 }
 

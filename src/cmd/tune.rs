@@ -26,7 +26,7 @@ pub struct Args {
 pub fn run(args: Args) -> Result<ExitCode> {
     let (config, progress) = args.run.start()?;
     let _claim = dovetail::folder::claim(&args.run.out)?;
-    let prep = pipeline::prepare(config, &progress)?;
+    let prep = pipeline::prepare_within(config, &progress, &args.run.budget())?;
     progress.stage("tuning");
     let cfg = &prep.config;
     let all = pipeline::passes_from(cfg, &cfg.block, "block")?;
@@ -38,8 +38,23 @@ pub fn run(args: Args) -> Result<ExitCode> {
     if all.len() > 1 {
         schemes.push(("all passes".to_string(), all.clone()));
     }
+    let budget = args.run.budget();
     for (i, sc) in cfg.scheme.iter().enumerate() {
         let passes = pipeline::passes_from(cfg, &sc.block, &format!("scheme[{}].block", i + 1))?;
+        // The configured passes were checked by `prepare`; each extra scheme is checked
+        // alone, as `link` would check it, before any scheme is evaluated.
+        if let Some(budget) = budget.resolve() {
+            let plan = dovetail::block::plan(&prep.records, &passes);
+            let memory = pipeline::MemoryEstimate::new(
+                prep.left.bytes + prep.right.bytes,
+                plan.pairs_per_pass(),
+            );
+            let mut labels = pipeline::pass_labels(&sc.block, &passes);
+            for l in &mut labels {
+                l.name = format!("{} of scheme `{}`", l.name, sc.name);
+            }
+            budget.check(&memory, &labels)?;
+        }
         schemes.push((sc.name.clone(), passes));
     }
     let rows = tune::evaluate(
