@@ -115,7 +115,7 @@ fn serious_warning(fv: &FieldValues, a: &FieldAgreement) -> Option<String> {
             100.0 * rs
         )
     };
-    let pairs = thousands(a.comparable_pairs as u64);
+    let pairs = crate::pipeline::count_text(a.comparable_pairs);
     let advice = match (fv.spec.method, codes(fv, true), codes(fv, false)) {
         (Method::Date, _, _) => "check each side's date format (`left_date_order`, `right_date_order`) or map the values with `left_recode`/`right_recode`".to_string(),
         (_, Some(l), Some(r)) => format!(
@@ -153,19 +153,6 @@ fn codes(fv: &FieldValues, left: bool) -> Option<Vec<&str>> {
         .collect();
     values.sort_unstable();
     (values.len() <= MAX_CODES).then_some(values)
-}
-
-/// A count with commas between groups of three digits ("1,234").
-fn thousands(n: u64) -> String {
-    let digits = n.to_string();
-    let mut out = String::with_capacity(digits.len() + digits.len() / 3);
-    for (i, c) in digits.chars().enumerate() {
-        if i > 0 && (digits.len() - i).is_multiple_of(3) {
-            out.push(',');
-        }
-        out.push(c);
-    }
-    out
 }
 
 #[cfg(test)]
@@ -266,13 +253,5 @@ mod tests {
             w[0]
         );
         assert!(!w[0].contains("v1"), "{}", w[0]);
-    }
-
-    #[test]
-    fn thousands_groups() {
-        assert_eq!(thousands(0), "0");
-        assert_eq!(thousands(999), "999");
-        assert_eq!(thousands(1234), "1,234");
-        assert_eq!(thousands(1234567), "1,234,567");
     }
 }

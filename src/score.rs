@@ -153,11 +153,10 @@ fn calibration(scored: &[(&Link, bool)]) -> Vec<Band> {
     out
 }
 
-/// Reads a run's links.csv: the `left_id`, `right_id` and `confidence` columns.
-pub fn read_links(path: &Path) -> Result<Vec<Link>> {
-    let bytes = std::fs::read(path)
-        .map_err(|e| Error::input(format!("cannot read: {e}")).with_file(path))?;
-    let data = bytes.strip_prefix(b"\xEF\xBB\xBF").unwrap_or(&bytes);
+/// Reads a run's links.csv from its bytes (the `left_id`, `right_id` and `confidence`
+/// columns); `path` names it in errors.
+pub fn read_links_from(bytes: &[u8], path: &Path) -> Result<Vec<Link>> {
+    let data = bytes.strip_prefix(b"\xEF\xBB\xBF").unwrap_or(bytes);
     let mut rdr = csv::ReaderBuilder::new().flexible(true).from_reader(data);
     let at = |e: Error| e.with_file(path);
     let header = rdr

@@ -88,7 +88,9 @@ pub fn run(args: Args) -> Result<ExitCode> {
     } else {
         None
     };
-    let links = score::read_links(&links_path)?;
+    let bytes = std::fs::read(&links_path)
+        .map_err(|e| Error::input(format!("cannot read: {e}")).with_file(&links_path))?;
+    let links = score::read_links_from(&bytes, &links_path)?;
     let known = score::read_known(&args.known)?;
     let s = score::score(&links, &known, args.partial);
     let est = run_estimates(&args.run);
@@ -106,8 +108,6 @@ pub fn run(args: Args) -> Result<ExitCode> {
             }
         );
     }
-    let bytes = std::fs::read(&links_path)
-        .map_err(|e| Error::input(format!("cannot read: {e}")).with_file(&links_path))?;
     let file = ScoreFile {
         tool: "dovetail",
         version: env!("CARGO_PKG_VERSION"),

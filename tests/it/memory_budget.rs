@@ -3,7 +3,7 @@
 //! status 4 and nothing written; `--memory-budget none` switches the check off; under a real
 //! address-space limit the default budget stops the run before an allocation fails.
 
-use crate::common::{files_in, run, stderr};
+use crate::common::{files_in, run, run_link, stderr};
 use std::path::{Path, PathBuf};
 use std::process::{Command, Output};
 
@@ -27,16 +27,9 @@ fn loose_tables(dir: &Path, rows: usize) -> PathBuf {
 }
 
 fn link(config: &Path, out: &Path, extra: &[&str]) -> Output {
-    let mut args = vec![
-        "link",
-        "--config",
-        config.to_str().expect("utf-8 path"),
-        "--out",
-        out.to_str().expect("utf-8 path"),
-        "--quiet",
-    ];
+    let mut args = vec!["--quiet"];
     args.extend_from_slice(extra);
-    run(&args)
+    run_link(config, out, &args)
 }
 
 fn error_lines(o: &Output) -> Vec<String> {
