@@ -522,6 +522,7 @@ mod tests {
             lines: (0..vals.len() as u64).map(|i| i + 2).collect(),
             bytes: 0,
             sha256: String::new(),
+            place: "line",
         }
     }
 

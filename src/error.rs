@@ -31,6 +31,8 @@ pub struct Error {
     message: String,
     file: Option<PathBuf>,
     line: Option<u64>,
+    /// What `line` counts: "line" of a text file, or "row" of a Parquet file or data frame.
+    place: &'static str,
     column: Option<String>,
 }
 
@@ -45,6 +47,7 @@ impl Error {
             message: message.into(),
             file: None,
             line: None,
+            place: "line",
             column: None,
         }
     }
@@ -80,6 +83,16 @@ impl Error {
         self
     }
 
+    /// Tags the error with a 1-based record number of a table that has no lines (a Parquet
+    /// file or a data frame), unless it already has a line or row.
+    pub fn with_row(mut self, row: u64) -> Self {
+        if self.line.is_none() {
+            self.line = Some(row);
+            self.place = "row";
+        }
+        self
+    }
+
     /// Tags the error with a column name or config key, unless it already has one.
     pub fn with_column(mut self, column: impl Into<String>) -> Self {
         if self.column.is_none() {
@@ -91,6 +104,21 @@ impl Error {
     /// The broad class of the error.
     pub fn kind(&self) -> ErrorKind {
         self.kind
+    }
+
+    /// The file the error names, if any.
+    pub fn file(&self) -> Option<&Path> {
+        self.file.as_deref()
+    }
+
+    /// The line (of a text file) or row (of a Parquet file or frame) the error names.
+    pub fn line(&self) -> Option<u64> {
+        self.line
+    }
+
+    /// The column or config key the error names.
+    pub fn column(&self) -> Option<&str> {
+        self.column.as_deref()
     }
 
     /// The message without context.
@@ -105,7 +133,7 @@ impl fmt::Display for Error {
             write!(f, "{}: ", file.display())?;
         }
         if let Some(line) = self.line {
-            write!(f, "line {line}: ")?;
+            write!(f, "{} {line}: ", self.place)?;
         }
         if let Some(column) = &self.column {
             write!(f, "column {column}: ")?;

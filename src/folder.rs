@@ -43,6 +43,10 @@ pub const OWNED: &[&str] = &[
     "unlinked_left.csv",
     "unlinked_right.csv",
     "review.csv",
+    "links.parquet",
+    "unlinked_left.parquet",
+    "unlinked_right.parquet",
+    "review.parquet",
     "summary.json",
     "report.html",
     "tune.csv",
@@ -345,9 +349,89 @@ pub struct OutputSet {
     pending: Vec<(PathBuf, PathBuf)>,
     files: Vec<OutputFile>,
     stamp: Option<Stamp>,
+    /// In memory only ([`OutputSet::in_memory`]): each file's name and bytes.
+    memory: Option<Vec<(String, Vec<u8>)>>,
 }
 
+/// A whole set of outputs held in memory: the files a command writes, in order, with the
+/// command's stamp; [`Rendered::write_to`] lands them in a folder as the command would.
+#[derive(Debug, Clone)]
+pub struct Rendered {
+    /// Who made the set.
+    pub stamp: Stamp,
+    /// Each file's name and content, in the order written.
+    pub files: Vec<(String, Vec<u8>)>,
+}
+
+impl Rendered {
+    /// The content of the file `name`, when the set has it.
+    pub fn file(&self, name: &str) -> Option<&[u8]> {
+        self.files
+            .iter()
+            .find(|(n, _)| n == name)
+            .map(|(_, b)| b.as_slice())
+    }
+
+    /// Lands the set in `dir` as one run's outputs (see [`OutputSet::for_run`]); with
+    /// `parquet`, each table also as Parquet beside its CSV, as `link --parquet` writes it.
+    pub fn write_to(&self, dir: &Path, parquet: bool) -> Result<Vec<PathBuf>> {
+        let mut out = OutputSet::for_run(dir, self.stamp.clone())?;
+        for (name, bytes) in &self.files {
+            out.write(name, |w| w.write_all(bytes))?;
+            if parquet {
+                out.parquet_beside(name, bytes)?;
+            }
+        }
+        out.commit()
+    }
+}
+
+/// The output tables that `link --parquet` also writes as Parquet.
+pub const PARQUET_TABLES: &[&str] = &[
+    "links.csv",
+    "unlinked_left.csv",
+    "unlinked_right.csv",
+    "review.csv",
+];
+
 impl OutputSet {
+    /// Starts a set of outputs that stays in memory (see [`OutputSet::into_rendered`]).
+    pub fn in_memory(stamp: Stamp) -> OutputSet {
+        OutputSet {
+            dir: PathBuf::new(),
+            into: PathBuf::new(),
+            pending: Vec::new(),
+            files: Vec::new(),
+            stamp: Some(stamp),
+            memory: Some(Vec::new()),
+        }
+    }
+
+    /// The files of an in-memory set (empty for a set written to a folder).
+    pub fn into_rendered(mut self) -> Rendered {
+        Rendered {
+            stamp: self.stamp.clone().unwrap_or(Stamp {
+                command: "",
+                fingerprint: None,
+            }),
+            files: self.memory.take().unwrap_or_default(),
+        }
+    }
+
+    /// When `name` is one of [`PARQUET_TABLES`], writes its CSV content `csv` again as a
+    /// Parquet file of the same name (numeric columns as floats, empty cells as nulls).
+    pub fn parquet_beside(&mut self, name: &str, csv: &[u8]) -> Result<()> {
+        let Some(stem) = PARQUET_TABLES
+            .contains(&name)
+            .then(|| name.trim_end_matches(".csv"))
+        else {
+            return Ok(());
+        };
+        let batch = crate::tabular::csv_to_batch(csv, crate::tabular::NUMERIC_COLUMNS)?;
+        let bytes = crate::tabular::parquet_bytes(&batch)?;
+        self.write(&format!("{stem}.parquet"), |w| w.write_all(&bytes))
+    }
+
     /// Starts a set of outputs in `dir`, creating it if needed.
     pub fn new(dir: &Path) -> Result<OutputSet> {
         std::fs::create_dir_all(dir).map_err(|e| {
@@ -359,6 +443,7 @@ impl OutputSet {
             pending: Vec::new(),
             files: Vec::new(),
             stamp: None,
+            memory: None,
         })
     }
 
@@ -385,6 +470,7 @@ impl OutputSet {
             pending: Vec::new(),
             files: Vec::new(),
             stamp: Some(stamp),
+            memory: None,
         })
     }
 
@@ -399,6 +485,12 @@ impl OutputSet {
     where
         F: FnOnce(&mut dyn Write) -> std::io::Result<()>,
     {
+        if let Some(memory) = &mut self.memory {
+            let mut bytes = Vec::new();
+            fill(&mut bytes).map_err(|e| Error::output(format!("cannot render {name}: {e}")))?;
+            memory.push((name.to_string(), bytes));
+            return Ok(());
+        }
         let target = self.dir.join(name);
         let tmp = if self.stamp.is_some() {
             self.into.join(name)
@@ -439,6 +531,10 @@ impl OutputSet {
 
     /// Puts the whole set in place.
     pub fn commit(mut self) -> Result<Vec<PathBuf>> {
+        if self.memory.is_some() {
+            // An in-memory set has no folder to land in; see `into_rendered`.
+            return Ok(Vec::new());
+        }
         // A target that is a folder cannot be replaced: find out before moving anything.
         if let Some((_, target)) = self.pending.iter().find(|(_, t)| t.is_dir()) {
             return Err(Error::output(
@@ -580,7 +676,7 @@ impl Drop for OutputSet {
         for (tmp, _) in &self.pending {
             let _ = std::fs::remove_file(tmp);
         }
-        if self.stamp.is_some() && self.into != self.dir {
+        if self.memory.is_none() && self.stamp.is_some() && self.into != self.dir {
             let _ = std::fs::remove_dir_all(&self.into);
         }
     }

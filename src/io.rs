@@ -30,8 +30,11 @@ pub struct Table {
     pub lines: Vec<u64>,
     /// Size of the file in bytes.
     pub bytes: u64,
-    /// SHA-256 of the file's bytes, in hex.
+    /// SHA-256 of the file's bytes, in hex (of a data frame: of its needed values, see
+    /// [`crate::tabular`]).
     pub sha256: String,
+    /// What `lines` count: "line" (of a CSV file) or "row" (of a Parquet file or a frame).
+    pub place: &'static str,
 }
 
 impl Table {
@@ -43,6 +46,15 @@ impl Table {
     /// True when the table has no records.
     pub fn is_empty(&self) -> bool {
         self.ids.is_empty()
+    }
+
+    /// Tags an error with the line (CSV) or row (Parquet, frame) `at`, as this table counts.
+    pub fn locate(&self, e: Error, at: u64) -> Error {
+        if self.place == "row" {
+            e.with_row(at)
+        } else {
+            e.with_line(at)
+        }
     }
 
     /// The values of a needed column.
@@ -137,10 +149,14 @@ pub struct ReadSpec {
     pub delimiter: u8,
 }
 
-/// Reads a table from a file; see [`read_table_from`]. The file is read once; its bytes are
+/// Reads a table from a file: Parquet when [`crate::tabular::is_parquet`] says so, else CSV
+/// (see [`read_table_from`]). The file is read once; its bytes are
 /// hashed and parsed from memory.
 pub fn read_table(path: &Path, spec: &ReadSpec) -> Result<Table> {
     let bytes = read_file(path, false)?;
+    if crate::tabular::is_parquet(path, &bytes) {
+        return crate::tabular::read_parquet(bytes, path, spec);
+    }
     read_table_from(&bytes, path, spec)
 }
 
@@ -257,6 +273,7 @@ pub fn read_table_from(bytes: &[u8], label: &Path, spec: &ReadSpec) -> Result<Ta
         lines,
         bytes: bytes.len() as u64,
         sha256,
+        place: "line",
     })
 }
 
@@ -400,26 +417,7 @@ fn parse_table(bytes: &[u8], label: &Path, spec: &ReadSpec) -> Result<Parsed> {
         let name = std::str::from_utf8(h).map_err(|_| at(not_utf8(1, &format!("#{}", i + 1))))?;
         names.push(name.trim().to_string());
     }
-    let find = |col: &str| -> Result<usize> {
-        names
-            .iter()
-            .position(|n| n == col)
-            .ok_or_else(|| at(column_not_found(&names, col, "", &spec.section).with_line(1)))
-    };
-    let id_at = find(&spec.id)?;
-    let mut wanted: Vec<(String, usize)> = Vec::new();
-    for c in &spec.columns {
-        if !wanted.iter().any(|(n, _)| n == c) {
-            wanted.push((c.clone(), find(c)?));
-        }
-    }
-    for c in &spec.optional {
-        if let Some(i) = names.iter().position(|n| n == c) {
-            if !wanted.iter().any(|(n, _)| n == c) {
-                wanted.push((c.clone(), i));
-            }
-        }
-    }
+    let (id_at, wanted) = needed_columns(&names, spec).map_err(|e| at(e.with_line(1)))?;
     // One pass over the rows copies the needed cells (the id first, then the wanted columns)
     // into one buffer per column; it stops at the first row that cannot be read.
     let take: Vec<usize> = std::iter::once(id_at)
@@ -470,27 +468,13 @@ fn parse_table(bytes: &[u8], label: &Path, spec: &ReadSpec) -> Result<Parsed> {
             consider(r, order, col.error(r, lines[r], name));
         }
     }
-    let ids = &checked[0].0;
-    let mut seen: HashMap<&str, u64, foldhash::fast::FixedState> =
-        HashMap::with_capacity_and_hasher(ids.len(), Default::default());
-    for (r, id) in ids.iter().enumerate() {
-        let line = lines[r];
-        let problem = if id.is_empty() {
-            Some("empty id".to_string())
-        } else {
-            seen.insert(id, line)
-                .map(|before| format!("duplicate id (first seen on line {before})"))
-        };
-        if let Some(msg) = problem {
-            consider(
-                r,
-                2,
-                Error::input(msg).with_line(line).with_column(&spec.id),
-            );
-            break;
-        }
+    if let Some((r, msg)) = id_problem(&checked[0].0, &lines, "line") {
+        consider(
+            r,
+            2,
+            Error::input(msg).with_line(lines[r]).with_column(&spec.id),
+        );
     }
-    drop(seen);
     if let Some((_, _, e)) = first {
         return Err(at(e));
     }
@@ -501,6 +485,52 @@ fn parse_table(bytes: &[u8], label: &Path, spec: &ReadSpec) -> Result<Parsed> {
     let ids = checked.next().unwrap_or_default();
     let columns = wanted.into_iter().map(|(n, _)| n).zip(checked).collect();
     Ok((ids, columns, names, lines))
+}
+
+/// Where the needed columns sit in a header: the id's position, then each compared column
+/// (every column `spec` names, in order, once) and each optional column the header has. A
+/// needed column the header lacks is an error with the closest names as suggestions.
+pub(crate) fn needed_columns(
+    names: &[String],
+    spec: &ReadSpec,
+) -> Result<(usize, Vec<(String, usize)>)> {
+    let find = |col: &str| -> Result<usize> {
+        names
+            .iter()
+            .position(|n| n == col)
+            .ok_or_else(|| column_not_found(names, col, "", &spec.section))
+    };
+    let id_at = find(&spec.id)?;
+    let mut wanted: Vec<(String, usize)> = Vec::new();
+    for c in &spec.columns {
+        if !wanted.iter().any(|(n, _)| n == c) {
+            wanted.push((c.clone(), find(c)?));
+        }
+    }
+    for c in &spec.optional {
+        if let Some(i) = names.iter().position(|n| n == c) {
+            if !wanted.iter().any(|(n, _)| n == c) {
+                wanted.push((c.clone(), i));
+            }
+        }
+    }
+    Ok((id_at, wanted))
+}
+
+/// The first row whose id is empty or seen before, with the message; `lines` number the rows
+/// as `place` says ("line" or "row").
+pub(crate) fn id_problem(ids: &[String], lines: &[u64], place: &str) -> Option<(usize, String)> {
+    let mut seen: HashMap<&str, u64, foldhash::fast::FixedState> =
+        HashMap::with_capacity_and_hasher(ids.len(), Default::default());
+    for (r, id) in ids.iter().enumerate() {
+        if id.is_empty() {
+            return Some((r, "empty id".to_string()));
+        }
+        if let Some(before) = seen.insert(id, lines[r]) {
+            return Some((r, format!("duplicate id (first seen on {place} {before})")));
+        }
+    }
+    None
 }
 
 /// Reads the next record into `record` and returns its line, or `None` at the end; a row

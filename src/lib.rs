@@ -29,6 +29,7 @@ pub mod report;
 pub mod rng;
 pub mod score;
 pub mod synth;
+pub mod tabular;
 pub mod text;
 pub mod tune;
 

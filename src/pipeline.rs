@@ -232,6 +232,13 @@ impl Clock {
 
 fn read_side(cfg: &Config, left: bool) -> Result<Table> {
     let spec = if left { &cfg.left } else { &cfg.right };
+    io::read_table(&cfg.resolve(&spec.path), &read_spec(cfg, left)?)
+}
+
+/// What to read from one side's table (`left` or not): its id column, the compared columns
+/// and the key-only columns, with the encoding and delimiter of a CSV file.
+pub fn read_spec(cfg: &Config, left: bool) -> Result<ReadSpec> {
+    let spec = if left { &cfg.left } else { &cfg.right };
     let key = if left { "left" } else { "right" };
     let encoding = Encoding::parse(spec.encoding.as_deref()).ok_or_else(|| {
         Error::config(format!(
@@ -265,15 +272,14 @@ fn read_side(cfg: &Config, left: bool) -> Result<Table> {
         .collect();
     // Key-only columns are read where present; `check_key_columns` then names the absent.
     let optional = cfg.key_columns.iter().flat_map(|c| split(c)).collect();
-    let read = ReadSpec {
+    Ok(ReadSpec {
         id: spec.id.clone(),
         columns,
         optional,
         section: key.to_string(),
         encoding,
         delimiter,
-    };
-    io::read_table(&cfg.resolve(&spec.path), &read)
+    })
 }
 
 /// Checks that both tables hold every key-only column (see `Config::key_columns`): a name
@@ -311,9 +317,9 @@ fn check_key_columns(cfg: &Config, left: &Table, right: &Table) -> Result<()> {
                     (left, "left")
                 };
                 let why = format!(" (for key `{key}` of `{at}`)");
-                return Err(io::column_not_found(&t.header, name, &why, section)
-                    .with_line(1)
-                    .with_file(&t.path));
+                let e = io::column_not_found(&t.header, name, &why, section);
+                let e = if t.place == "line" { e.with_line(1) } else { e };
+                return Err(e.with_file(&t.path));
             }
         }
     }
@@ -436,13 +442,31 @@ pub fn prepare_within(
     progress: &dyn Progress,
     budget: &Budget,
 ) -> Result<Prepared> {
+    prepare_given(config, progress, budget, None)
+}
+
+/// [`prepare_within`] with the two tables already read (`given`, e.g. from data frames by
+/// [`crate::tabular::table_from_batches`] with [`read_spec`]) instead of read from the
+/// config's paths.
+pub fn prepare_given(
+    config: Config,
+    progress: &dyn Progress,
+    budget: &Budget,
+    given: Option<(Table, Table)>,
+) -> Result<Prepared> {
     let mut timings = Vec::new();
     let mut warnings = Vec::new();
     let mut clock = Clock::new();
     progress.stage("reading");
-    // Both tables at once; the left table's error first when both fail.
-    let (left, right) = rayon::join(|| read_side(&config, true), || read_side(&config, false));
-    let (left, right) = (left?, right?);
+    let (left, right) = match given {
+        Some(tables) => tables,
+        None => {
+            // Both tables at once; the left table's error first when both fail.
+            let (left, right) =
+                rayon::join(|| read_side(&config, true), || read_side(&config, false));
+            (left?, right?)
+        }
+    };
     check_key_columns(&config, &left, &right)?;
     let config = drop_empty_fields(config, &left, &right, &mut warnings)?;
     let records = records::build(&left, &right, &config.field, &config.key_columns)?;

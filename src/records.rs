@@ -24,12 +24,14 @@ pub const MISSING: u32 = u32::MAX;
 pub const UNPARSED_LINES: usize = 5;
 
 /// Values of one side that are not dates (or not numbers) and were taken as missing.
-#[derive(Debug, Clone, Default, PartialEq, Eq)]
+#[derive(Debug, Clone, PartialEq, Eq)]
 pub struct Unparsed {
     /// How many records hold such a value.
     pub count: u64,
     /// The lines of the first [`UNPARSED_LINES`] of them.
     pub first_lines: Vec<u64>,
+    /// What the numbers count: "line" (CSV) or "row" (Parquet, frame).
+    pub place: &'static str,
 }
 
 /// One field's values on both sides.
@@ -106,15 +108,15 @@ impl FieldValues {
         let (what, lines_word) = match (u.count, lines.len()) {
             (1, _) => (
                 format!("1 value in the {side} table is not {} and was", kind.0),
-                "line",
+                u.place.to_string(),
             ),
             (n, k) if n as usize > k => (
                 format!("{n} values in the {side} table are not {} and were", kind.1),
-                "first lines",
+                format!("first {}s", u.place),
             ),
             (n, _) => (
                 format!("{n} values in the {side} table are not {} and were", kind.1),
-                "lines",
+                format!("{}s", u.place),
             ),
         };
         Some(format!(
@@ -122,6 +124,16 @@ impl FieldValues {
             self.spec.name,
             lines.join(", ")
         ))
+    }
+}
+
+impl Default for Unparsed {
+    fn default() -> Unparsed {
+        Unparsed {
+            count: 0,
+            first_lines: Vec::new(),
+            place: "line",
+        }
     }
 }
 
@@ -363,13 +375,8 @@ fn build_field(left: &Table, right: &Table, spec: &FieldSpec) -> Result<FieldVal
     };
     let mut left_counts = vec![0u32; dict.dict.len()];
     let mut right_counts = vec![0u32; dict.dict.len()];
-    let (l, left_unparsed) = side_ids(&lraw_ids, &left_of_raw, &mut left_counts, &left.lines);
-    let (r, right_unparsed) = side_ids(
-        &right_local,
-        &right_of_local,
-        &mut right_counts,
-        &right.lines,
-    );
+    let (l, left_unparsed) = side_ids(&lraw_ids, &left_of_raw, &mut left_counts, left);
+    let (r, right_unparsed) = side_ids(&right_local, &right_of_local, &mut right_counts, right);
     let fv = FieldValues {
         spec: spec.clone(),
         dict: dict.dict,
@@ -390,8 +397,12 @@ fn build_field(left: &Table, right: &Table, spec: &FieldSpec) -> Result<FieldVal
 
 /// Each row's value id from its distinct text's id (`of`), with the counts per value and the
 /// rows whose text did not parse (made missing).
-fn side_ids(rows: &[u32], of: &[u32], counts: &mut [u32], lines: &[u64]) -> (Vec<u32>, Unparsed) {
-    let mut unparsed = Unparsed::default();
+fn side_ids(rows: &[u32], of: &[u32], counts: &mut [u32], table: &Table) -> (Vec<u32>, Unparsed) {
+    let lines = &table.lines;
+    let mut unparsed = Unparsed {
+        place: table.place,
+        ..Unparsed::default()
+    };
     let ids = rows
         .iter()
         .enumerate()
@@ -449,9 +460,9 @@ fn stop_on_unparsed(fv: &FieldValues, left: &Table, right: &Table) -> Result<()>
         } else {
             "not a finite number".to_string()
         };
-        return Err(Error::input(what)
+        return Err(table
+            .locate(Error::input(what), line)
             .with_file(&table.path)
-            .with_line(line)
             .with_column(column));
     }
     Ok(())
@@ -475,6 +486,7 @@ mod tests {
             lines: (0..vals.len() as u64).map(|i| i + 2).collect(),
             bytes: 0,
             sha256: String::new(),
+            place: "line",
         }
     }
 
@@ -532,7 +544,8 @@ mod tests {
             f.left_unparsed,
             Unparsed {
                 count: 2,
-                first_lines: vec![4, 6]
+                first_lines: vec![4, 6],
+                place: "line",
             }
         );
         assert_eq!(f.right_unparsed.count, 1);

@@ -25,6 +25,8 @@ mod match_cmd;
 mod memory_budget;
 #[path = "it/outputs_folder.rs"]
 mod outputs_folder;
+#[path = "it/parquet.rs"]
+mod parquet;
 #[path = "it/reliability_synth.rs"]
 mod reliability_synth;
 #[path = "it/report_html.rs"]

@@ -16,6 +16,10 @@ pub struct Args {
     /// (summary.json and report.html are still written, saying why).
     #[arg(long)]
     stop_if_infeasible: bool,
+    /// Also write links, unlinked records and review pairs as Parquet files (links.parquet,
+    /// unlinked_left.parquet, unlinked_right.parquet, review.parquet) beside the CSV files.
+    #[arg(long)]
+    parquet: bool,
 }
 
 pub fn run(args: Args) -> Result<ExitCode> {
@@ -36,7 +40,7 @@ pub fn run(args: Args) -> Result<ExitCode> {
             "the linkage is infeasible; no links were written (stop_if_infeasible is set); summary.json and report.html say why",
         ));
     }
-    let written = report::write_linkage(&args.run.out, &prep, &linkage)?;
+    let written = report::write_linkage(&args.run.out, &prep, &linkage, args.parquet)?;
     if !args.run.quiet {
         println!(
             "links: {} (confidence cut-off {}); outputs in {}",

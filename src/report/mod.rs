@@ -1014,13 +1014,53 @@ fn next_steps(
 
 /// Writes links.csv, unlinked_left.csv, unlinked_right.csv, review.csv, report.html and
 /// summary.json.
-pub fn write_linkage(dir: &Path, prep: &Prepared, l: &Linkage) -> Result<Vec<PathBuf>> {
+pub fn write_linkage(
+    dir: &Path,
+    prep: &Prepared,
+    l: &Linkage,
+    parquet: bool,
+) -> Result<Vec<PathBuf>> {
+    let mut out = OutputSet::for_run(dir, crate::folder::stamp_of(prep, "link"))?;
+    let tune = read_tune(dir, prep);
+    emit_linkage(&mut out, tune.as_deref(), prep, l, parquet)?;
+    out.commit()
+}
+
+/// The files [`write_linkage`] writes, in memory (the report has no tune table: there is no
+/// folder to find one in).
+pub fn render_linkage(prep: &Prepared, l: &Linkage) -> Result<crate::folder::Rendered> {
+    let mut out = OutputSet::in_memory(crate::folder::stamp_of(prep, "link"));
+    emit_linkage(&mut out, None, prep, l, false)?;
+    Ok(out.into_rendered())
+}
+
+/// Writes one output table through `fill`; with `parquet`, also as Parquet beside it.
+fn write_table<F>(out: &mut OutputSet, name: &str, parquet: bool, fill: F) -> Result<()>
+where
+    F: FnOnce(&mut dyn Write) -> std::io::Result<()>,
+{
+    if !parquet {
+        return out.write(name, fill);
+    }
+    let mut bytes = Vec::new();
+    fill(&mut bytes).map_err(|e| crate::Error::output(format!("cannot render {name}: {e}")))?;
+    out.write(name, |w| w.write_all(&bytes))?;
+    out.parquet_beside(name, &bytes)
+}
+
+/// The outputs of `link` into `out`: the four tables, report.html and summary.json.
+fn emit_linkage(
+    out: &mut OutputSet,
+    tune: Option<&[html::TuneRow]>,
+    prep: &Prepared,
+    l: &Linkage,
+    parquet: bool,
+) -> Result<()> {
     let run_date = run_date()?;
     let names: Vec<&str> = prep.config.field.iter().map(|f| f.name.as_str()).collect();
     let outcomes = Outcomes::new(prep, l);
-    let mut out = OutputSet::for_run(dir, crate::folder::stamp_of(prep, "link"))?;
 
-    out.write("links.csv", |w| {
+    write_table(out, "links.csv", parquet, |w| {
         let mut c = csv_writer(w);
         let mut head = vec!["left_id", "right_id", "weight", "confidence"];
         head.extend(names.iter().copied());
@@ -1039,7 +1079,7 @@ pub fn write_linkage(dir: &Path, prep: &Prepared, l: &Linkage) -> Result<Vec<Pat
     })?;
 
     let unlinked = |out: &mut OutputSet, name: &str, left: bool| {
-        out.write(name, |w| {
+        write_table(out, name, parquet, |w| {
             let mut c = csv_writer(w);
             c.write_record(["id", "reason", "best_candidate", "best_confidence"])
                 .map_err(to_io)?;
@@ -1073,11 +1113,11 @@ pub fn write_linkage(dir: &Path, prep: &Prepared, l: &Linkage) -> Result<Vec<Pat
             c.flush()
         })
     };
-    unlinked(&mut out, "unlinked_left.csv", true)?;
-    unlinked(&mut out, "unlinked_right.csv", false)?;
+    unlinked(out, "unlinked_left.csv", true)?;
+    unlinked(out, "unlinked_right.csv", false)?;
 
     let review = review_pairs(prep, l);
-    out.write("review.csv", |w| {
+    write_table(out, "review.csv", parquet, |w| {
         let mut c = csv_writer(w);
         let mut head: Vec<String> = [
             "left_id",
@@ -1117,12 +1157,11 @@ pub fn write_linkage(dir: &Path, prep: &Prepared, l: &Linkage) -> Result<Vec<Pat
     })?;
 
     let steps = next_steps(prep, &l.assessment, Some((l, &outcomes, review.len())));
-    let tune = read_tune(dir, prep);
     let page = html::page(&html::Context {
         prep,
         linkage: l,
         review: &review,
-        tune: tune.as_deref(),
+        tune,
         outcomes: Some(&outcomes),
         next_steps: &steps,
         run_date: &run_date,
@@ -1134,11 +1173,7 @@ pub fn write_linkage(dir: &Path, prep: &Prepared, l: &Linkage) -> Result<Vec<Pat
         next_steps: steps,
         stopped: false,
     };
-    write_summary(
-        &mut out,
-        &summary(prep, &l.assessment, Some(l), "link", extra),
-    )?;
-    out.commit()
+    write_summary(out, &summary(prep, &l.assessment, Some(l), "link", extra))
 }
 
 /// For a run that `stop_if_infeasible` stopped: writes only summary.json and report.html,

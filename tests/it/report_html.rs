@@ -377,7 +377,7 @@ fn serious_warnings_come_first_and_set_apart() {
     ));
     let linkage = pipeline::link(&mut prep, &Silent);
     let out = dir.path().join("out");
-    dovetail::report::write_linkage(&out, &prep, &linkage).unwrap();
+    dovetail::report::write_linkage(&out, &prep, &linkage, false).unwrap();
     let html = std::fs::read_to_string(out.join("report.html")).unwrap();
     let serious = html
         .find("field <code>sex</code> is coded M/F")
