@@ -22,6 +22,8 @@ pub enum ErrorKind {
     /// The run's estimated peak memory is over its memory budget; it stopped before making
     /// any candidate pair.
     OverBudget,
+    /// The caller asked the run to stop ([`crate::pipeline::Progress::cancelled`]).
+    Cancelled,
 }
 
 /// An error with the context needed to find its cause in the user's files.
@@ -99,6 +101,20 @@ impl Error {
             self.column = Some(column.into());
         }
         self
+    }
+
+    /// The same error without its line or row: for config text the user never saw as lines
+    /// (a config given as a dictionary and rendered to TOML).
+    pub fn without_line(mut self) -> Self {
+        self.line = None;
+        self.place = "line";
+        self
+    }
+
+    /// What [`Error::line`] counts: "line" of a text file, or "row" of a Parquet file or
+    /// data frame.
+    pub fn place(&self) -> &'static str {
+        self.place
     }
 
     /// The broad class of the error.

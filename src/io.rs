@@ -650,9 +650,13 @@ pub struct ScoredPairs {
     pub weight: Vec<f64>,
 }
 
-/// Reads a CSV of scored pairs with columns `left_id,right_id,weight` (others ignored).
+/// Reads a CSV (or Parquet) file of scored pairs with columns `left_id,right_id,weight`
+/// (others ignored).
 pub fn read_scored_pairs(path: &Path) -> Result<ScoredPairs> {
     let bytes = read_file(path, true)?;
+    if crate::tabular::is_parquet(path, &bytes) {
+        return crate::tabular::read_scored_pairs_parquet(bytes, path);
+    }
     read_scored_pairs_from(&bytes, path)
 }
 
@@ -688,11 +692,7 @@ pub fn read_scored_pairs_from(bytes: &[u8], label: &Path) -> Result<ScoredPairs>
         })
     };
     let (li, ri, wi) = (col("left_id")?, col("right_id")?, col("weight")?);
-    let mut out = ScoredPairs::default();
-    let mut lmap = IdMap::default();
-    let mut rmap = IdMap::default();
-    // (pair key, line) of every row; duplicates are found by sorting once at the end.
-    let mut keys: Vec<(u64, u64)> = Vec::new();
+    let mut pairs = PairsBuilder::new("line");
     let mut record = csv::ByteRecord::new();
     let mut lines_at = LineCounter::default();
     while let Some(line) =
@@ -708,42 +708,84 @@ pub fn read_scored_pairs_from(bytes: &[u8], label: &Path) -> Result<ScoredPairs>
             text(ri, "right_id")?,
             text(wi, "weight")?,
         );
+        pairs.push(l, r, w, line).map_err(at)?;
+    }
+    pairs.finish().map_err(at)
+}
+
+/// Scored pairs gathered one at a time, checked as they come (non-empty ids, a finite
+/// weight) and at the end (no pair given twice); `place` says what the numbers passed to
+/// [`PairsBuilder::push`] count ("line" of a CSV file or "row" of a Parquet file or frame).
+pub(crate) struct PairsBuilder {
+    out: ScoredPairs,
+    lmap: IdMap,
+    rmap: IdMap,
+    /// (pair key, line) of every pair; duplicates are found by sorting once at the end.
+    keys: Vec<(u64, u64)>,
+    place: &'static str,
+}
+
+impl PairsBuilder {
+    pub(crate) fn new(place: &'static str) -> PairsBuilder {
+        PairsBuilder {
+            out: ScoredPairs::default(),
+            lmap: IdMap::default(),
+            rmap: IdMap::default(),
+            keys: Vec::new(),
+            place,
+        }
+    }
+
+    fn mark(&self, e: Error, at: u64) -> Error {
+        if self.place == "row" {
+            e.with_row(at)
+        } else {
+            e.with_line(at)
+        }
+    }
+
+    /// Adds the pair on line (or row) `at`: ids `l` and `r` and the weight's text `w`.
+    pub(crate) fn push(&mut self, l: &str, r: &str, w: &str, at: u64) -> Result<()> {
         for (v, c) in [(l, "left_id"), (r, "right_id")] {
             if v.is_empty() {
-                return Err(at(Error::input("empty id").with_line(line).with_column(c)));
+                return Err(self.mark(Error::input("empty id"), at).with_column(c));
             }
         }
         let weight: f64 = w.parse().map_err(|_| {
-            at(Error::input(format!("`{w}` is not a number"))
-                .with_line(line)
-                .with_column("weight"))
+            self.mark(Error::input(format!("`{w}` is not a number")), at)
+                .with_column("weight")
         })?;
         if !weight.is_finite() {
-            return Err(at(Error::input(format!("weight `{w}` is not finite"))
-                .with_line(line)
-                .with_column("weight")));
+            return Err(self
+                .mark(Error::input(format!("weight `{w}` is not finite")), at)
+                .with_column("weight"));
         }
-        let a = lmap.intern(l, &mut out.left_ids);
-        let b = rmap.intern(r, &mut out.right_ids);
-        keys.push(((a as u64) << 32 | b as u64, line));
-        out.left.push(a);
-        out.right.push(b);
-        out.weight.push(weight);
+        let a = self.lmap.intern(l, &mut self.out.left_ids);
+        let b = self.rmap.intern(r, &mut self.out.right_ids);
+        self.keys.push(((a as u64) << 32 | b as u64, at));
+        self.out.left.push(a);
+        self.out.right.push(b);
+        self.out.weight.push(weight);
+        Ok(())
     }
-    // The earliest line that repeats a pair given before.
-    keys.sort_unstable();
-    let repeat = keys
-        .windows(2)
-        .filter(|k| k[0].0 == k[1].0)
-        .min_by_key(|k| k[1].1);
-    if let Some(k) = repeat {
-        return Err(at(Error::input(format!(
-            "duplicate pair (first given on line {})",
-            k[0].1
-        ))
-        .with_line(k[1].1)));
+
+    /// The pairs, or an error at the earliest pair that repeats one given before.
+    pub(crate) fn finish(mut self) -> Result<ScoredPairs> {
+        self.keys.sort_unstable();
+        let repeat = self
+            .keys
+            .windows(2)
+            .filter(|k| k[0].0 == k[1].0)
+            .min_by_key(|k| k[1].1);
+        if let Some(k) = repeat {
+            let e = Error::input(format!(
+                "duplicate pair (first given on {} {})",
+                self.place, k[0].1
+            ));
+            return Err(self.mark(e, k[1].1));
+        }
+        Ok(self.out)
     }
-    Ok(out)
 }
 
 /// Ids interned in first-seen order (a fast, fixed-seed hash: the ids come from a local file).

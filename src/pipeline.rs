@@ -28,6 +28,24 @@ pub trait Progress: Sync {
     fn stage(&self, name: &str);
     /// A line of news for the user (counts only, never record values).
     fn note(&self, _text: &str) {}
+    /// Whether the caller asked the run to stop (e.g. Ctrl-C in a notebook); the stages
+    /// look before each starts and the run then ends with an error of kind
+    /// [`crate::ErrorKind::Cancelled`].
+    fn cancelled(&self) -> bool {
+        false
+    }
+}
+
+/// Starts stage `name` on `progress`, unless the caller asked the run to stop.
+fn begin(progress: &dyn Progress, name: &str) -> Result<()> {
+    if progress.cancelled() {
+        return Err(Error::new(
+            crate::ErrorKind::Cancelled,
+            format!("the run was stopped before its {name} stage"),
+        ));
+    }
+    progress.stage(name);
+    Ok(())
 }
 
 /// A progress sink that says nothing.
@@ -230,7 +248,8 @@ impl Clock {
     }
 }
 
-fn read_side(cfg: &Config, left: bool) -> Result<Table> {
+/// Reads one side's table (`left` or not) from the path its config gives.
+pub fn read_side(cfg: &Config, left: bool) -> Result<Table> {
     let spec = if left { &cfg.left } else { &cfg.right };
     io::read_table(&cfg.resolve(&spec.path), &read_spec(cfg, left)?)
 }
@@ -457,7 +476,7 @@ pub fn prepare_given(
     let mut timings = Vec::new();
     let mut warnings = Vec::new();
     let mut clock = Clock::new();
-    progress.stage("reading");
+    begin(progress, "reading")?;
     let (left, right) = match given {
         Some(tables) => tables,
         None => {
@@ -479,7 +498,7 @@ pub fn prepare_given(
     }
     clock.lap("reading", &mut timings);
 
-    progress.stage("blocking");
+    begin(progress, "blocking")?;
     let passes = passes_from(&config, &config.block, "block")?;
     let plan = block::plan(&records, &passes);
     let memory = MemoryEstimate::new(left.bytes + right.bytes, plan.pairs_per_pass());
@@ -502,14 +521,14 @@ pub fn prepare_given(
     }
     clock.lap("blocking", &mut timings);
 
-    progress.stage("comparing");
+    begin(progress, "comparing")?;
     let comparison = compare::compare(&records, &cands);
     let counts = comparison.pattern_counts();
     let agreement = codings::agreement(&records, &counts);
     warnings.extend(codings::warnings(&records, &agreement));
     clock.lap("comparing", &mut timings);
 
-    progress.stage("fitting");
+    begin(progress, "fitting")?;
     let Fitted {
         fit,
         plain_fit,
@@ -596,7 +615,7 @@ pub fn prepare_given(
     };
     if !prep.cands.is_empty() {
         let mut clock = Clock::new();
-        progress.stage("duplicates");
+        begin(progress, "duplicates")?;
         let d = crate::duplicates::estimate(&prep)?;
         for (pairs, n, side) in [
             (d.left_pairs, prep.records.n_left(), "left"),
@@ -731,14 +750,17 @@ fn verdict_rule(cfg: &Config) -> VerdictRule {
 }
 
 /// Matches on theta and assesses feasibility (with the bootstrap forecast).
-fn match_and_assess(prep: &mut Prepared, progress: &dyn Progress) -> (Matching, Assessment) {
+fn match_and_assess(
+    prep: &mut Prepared,
+    progress: &dyn Progress,
+) -> Result<(Matching, Assessment)> {
     let mut clock = Clock::new();
-    progress.stage("matching");
+    begin(progress, "matching")?;
     let n_left = prep.records.n_left();
     let matching =
         matching::max_weight_matching(n_left, &prep.cands.left, &prep.cands.right, &prep.theta);
     clock.lap("matching", &mut prep.timings);
-    progress.stage("assessing");
+    begin(progress, "assessing")?;
     let fc = forecast::bracketed(
         n_left,
         &prep.cands.left,
@@ -790,7 +812,7 @@ fn match_and_assess(prep: &mut Prepared, progress: &dyn Progress) -> (Matching, 
         }
     }
     clock.lap("assessing", &mut prep.timings);
-    (matching, assessment)
+    Ok((matching, assessment))
 }
 
 /// A flagged model check makes a feasible verdict borderline, says why in plain words, and
@@ -907,8 +929,8 @@ fn estimate_intervals(
 }
 
 /// The feasibility assessment without writing links.
-pub fn assess_only(prep: &mut Prepared, progress: &dyn Progress) -> Assessment {
-    match_and_assess(prep, progress).1
+pub fn assess_only(prep: &mut Prepared, progress: &dyn Progress) -> Result<Assessment> {
+    Ok(match_and_assess(prep, progress)?.1)
 }
 
 /// The lowest cut-off whose estimated precision (mean confidence of the links at or above it)
@@ -934,10 +956,10 @@ pub fn cutoff_for_precision(confidences: &[f64], target: f64) -> f64 {
 }
 
 /// The full run after [`prepare`]: match, assess, score confidence, decide.
-pub fn link(prep: &mut Prepared, progress: &dyn Progress) -> Linkage {
-    let (matching, assessment) = match_and_assess(prep, progress);
+pub fn link(prep: &mut Prepared, progress: &dyn Progress) -> Result<Linkage> {
+    let (matching, assessment) = match_and_assess(prep, progress)?;
     let mut clock = Clock::new();
-    progress.stage("confidence");
+    begin(progress, "confidence")?;
     let confidence = confidence::marginals(
         prep.records.n_left(),
         &prep.cands.left,
@@ -970,7 +992,7 @@ pub fn link(prep: &mut Prepared, progress: &dyn Progress) -> Linkage {
     };
     let (precision, recall) = estimate_intervals(prep, &links, &confidence.p);
     clock.lap("confidence", &mut prep.timings);
-    progress.stage("completeness");
+    begin(progress, "completeness")?;
     let completeness = if prep.cands.is_empty() {
         None
     } else {
@@ -1006,7 +1028,7 @@ pub fn link(prep: &mut Prepared, progress: &dyn Progress) -> Linkage {
         ));
     }
     clock.lap("completeness", &mut prep.timings);
-    Linkage {
+    Ok(Linkage {
         matching,
         confidence,
         assessment,
@@ -1016,7 +1038,7 @@ pub fn link(prep: &mut Prepared, progress: &dyn Progress) -> Linkage {
         recall,
         completeness,
         recall_all,
-    }
+    })
 }
 
 impl Prepared {
@@ -1075,5 +1097,54 @@ mod tests {
         assert_eq!(count_text(999.0), "999");
         assert_eq!(count_text(3411.6), "3,412");
         assert_eq!(count_text(1_234_567.0), "1,234,567");
+    }
+
+    /// Stops the run as soon as the stage named `after` has started.
+    struct StopAfter {
+        after: &'static str,
+        seen: std::sync::Mutex<Vec<String>>,
+    }
+
+    impl Progress for StopAfter {
+        fn stage(&self, name: &str) {
+            self.seen.lock().expect("lock").push(name.to_string());
+        }
+        fn cancelled(&self) -> bool {
+            self.seen
+                .lock()
+                .expect("lock")
+                .iter()
+                .any(|s| s == self.after)
+        }
+    }
+
+    #[test]
+    fn a_cancelled_run_stops_before_the_next_stage() {
+        let path =
+            std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("config-examples/sample.toml");
+        let stop = StopAfter {
+            after: "blocking",
+            seen: Default::default(),
+        };
+        let cfg = Config::from_path(&path).expect("sample config");
+        let e = match prepare(cfg, &stop) {
+            Ok(_) => panic!("a cancelled run went on"),
+            Err(e) => e,
+        };
+        assert_eq!(e.kind(), crate::ErrorKind::Cancelled);
+        assert_eq!(*stop.seen.lock().expect("lock"), ["reading", "blocking"]);
+        // Not cancelled: the same run reaches the last stage.
+        let late = StopAfter {
+            after: "never",
+            seen: Default::default(),
+        };
+        let mut prep = prepare(Config::from_path(&path).expect("config"), &late).expect("prepare");
+        link(&mut prep, &late).expect("link");
+        assert!(late
+            .seen
+            .lock()
+            .expect("lock")
+            .iter()
+            .any(|s| s == "confidence"));
     }
 }

@@ -123,6 +123,44 @@ pub struct Scenario {
 }
 
 impl Scenario {
+    /// Checks the shares of `opts` and `self` (each within [0, 1], at least one row) and
+    /// adds the `column=rate` entries of `blank` (as `--blank` takes them) to the blanked
+    /// columns; errors are config errors naming the options as the CLI spells them.
+    pub fn check(&mut self, opts: &SynthOptions, blank: &[String]) -> crate::Result<()> {
+        use crate::Error;
+        if opts.rows == 0 {
+            return Err(Error::config("--rows must be at least 1"));
+        }
+        let shares = [
+            opts.overlap,
+            opts.noise,
+            opts.twins,
+            self.movers.unwrap_or(0.0),
+            self.household_moves,
+            self.relatives,
+            self.duplicates,
+        ];
+        if shares.iter().any(|v| !(0.0..=1.0).contains(v)) {
+            return Err(Error::config(
+                "--overlap, --noise, --twins, --movers, --household-moves, --relatives and --duplicates must lie within [0, 1]",
+            ));
+        }
+        for b in blank {
+            let parsed = Scenario::parse_blank(b)
+                .filter(|(col, _)| Scenario::blank_columns().contains(&col.as_str()));
+            match parsed {
+                Some(p) => self.blank.push(p),
+                None => {
+                    return Err(Error::config(format!(
+                        "--blank `{b}`: give COLUMN=RATE with a rate in [0, 1] and one of the columns {}",
+                        Scenario::blank_columns().join(", ")
+                    )))
+                }
+            }
+        }
+        Ok(())
+    }
+
     /// Parses `column=rate` (a `--blank` argument).
     pub fn parse_blank(text: &str) -> Option<(String, f64)> {
         let (col, rate) = text.split_once('=')?;
@@ -157,6 +195,28 @@ pub struct Synthetic {
     pub config_toml: String,
     /// Number of true pairs.
     pub true_pairs: usize,
+}
+
+impl Synthetic {
+    /// The files `dovetail synth` writes, by name, in order.
+    pub fn files(&self) -> [(&'static str, &str); 4] {
+        [
+            ("left.csv", &self.left_csv),
+            ("right.csv", &self.right_csv),
+            ("truth.csv", &self.truth_csv),
+            ("config.toml", &self.config_toml),
+        ]
+    }
+
+    /// Writes [`Synthetic::files`] into `dir` (created if needed), all or none.
+    pub fn write_to(&self, dir: &std::path::Path) -> crate::Result<()> {
+        let mut out = crate::folder::OutputSet::new(dir)?;
+        for (name, text) in self.files() {
+            out.write(name, |w| w.write_all(text.as_bytes()))?;
+        }
+        out.commit()?;
+        Ok(())
+    }
 }
 
 fn zipf_cumulative(n: usize, s: f64) -> Vec<f64> {

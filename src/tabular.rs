@@ -9,7 +9,7 @@
 //! a typed record batch (its numeric columns as floats), which [`parquet_bytes`] writes.
 
 use crate::error::{Error, Result};
-use crate::io::{ReadSpec, Table, MAX_CELL_BYTES};
+use crate::io::{ReadSpec, ScoredPairs, Table, MAX_CELL_BYTES};
 use arrow_array::cast::AsArray;
 use arrow_array::types::*;
 use arrow_array::{Array, ArrayRef, Float64Array, RecordBatch, StringArray};
@@ -33,6 +33,81 @@ pub fn is_parquet(path: &Path, bytes: &[u8]) -> bool {
 /// Reads the needed columns of a Parquet file's bytes into a [`Table`]. A file that is not
 /// Parquet, or is truncated or damaged, is one error naming the file.
 pub fn read_parquet(bytes: Vec<u8>, label: &Path, spec: &ReadSpec) -> Result<Table> {
+    let sha256 = crate::io::sha256_hex(&bytes);
+    let size = bytes.len() as u64;
+    let (header, projected, batches) = parquet_batches(bytes, label, |header| {
+        Ok(wanted_columns(header, spec)?
+            .into_iter()
+            .map(|(_, i)| i)
+            .collect())
+    })?;
+    let mut table = table_from_batches(&projected, &batches, label, spec)?;
+    table.header = header;
+    table.sha256 = sha256;
+    table.bytes = size;
+    Ok(table)
+}
+
+/// Reads scored pairs (`left_id`, `right_id`, `weight`; other columns ignored) from a Parquet
+/// file's bytes; see [`scored_pairs_from_batches`].
+pub fn read_scored_pairs_parquet(bytes: Vec<u8>, label: &Path) -> Result<ScoredPairs> {
+    let (_, projected, batches) = parquet_batches(bytes, label, |header| {
+        PAIR_COLUMNS
+            .iter()
+            .map(|c| pair_column(header, c))
+            .collect()
+    })?;
+    scored_pairs_from_batches(&projected, &batches, label)
+}
+
+/// The columns of a table of scored pairs.
+const PAIR_COLUMNS: [&str; 3] = ["left_id", "right_id", "weight"];
+
+fn pair_column(header: &[String], want: &str) -> Result<usize> {
+    header.iter().position(|n| n == want).ok_or_else(|| {
+        Error::input(format!(
+            "column `{want}` not found (columns: {}); the table must name left_id, right_id and weight",
+            header.join(", ")
+        ))
+    })
+}
+
+/// Scored pairs from record batches with columns `left_id`, `right_id` (any types read as
+/// text) and `weight` (numbers, or text holding numbers); checked as the CSV reader checks
+/// them, with errors naming the 1-based row.
+pub fn scored_pairs_from_batches(
+    schema: &SchemaRef,
+    batches: &[RecordBatch],
+    label: &Path,
+) -> Result<ScoredPairs> {
+    let at = |e: Error| e.with_file(label);
+    let header = names_of(schema);
+    let mut cols: Vec<Vec<String>> = Vec::with_capacity(3);
+    for name in PAIR_COLUMNS {
+        let i = pair_column(&header, name).map_err(at)?;
+        let mut col = Vec::new();
+        for b in batches {
+            let offset = col.len();
+            texts_into(b.column(i).as_ref(), &mut col)
+                .map_err(|(r, e)| at(e.with_row((offset + r + 1) as u64).with_column(name)))?;
+        }
+        cols.push(col);
+    }
+    let mut pairs = crate::io::PairsBuilder::new("row");
+    for (r, ((l, rt), w)) in cols[0].iter().zip(&cols[1]).zip(&cols[2]).enumerate() {
+        pairs.push(l, rt, w, r as u64 + 1).map_err(at)?;
+    }
+    pairs.finish().map_err(at)
+}
+
+/// The columns `pick` chooses from a Parquet file's header (trimmed names), read whole: the
+/// header, the schema of the chosen columns and their batches. A file that is not Parquet,
+/// or is truncated or damaged, is one error naming the file.
+fn parquet_batches(
+    bytes: Vec<u8>,
+    label: &Path,
+    pick: impl FnOnce(&[String]) -> Result<Vec<usize>>,
+) -> Result<(Vec<String>, SchemaRef, Vec<RecordBatch>)> {
     use parquet::arrow::arrow_reader::ParquetRecordBatchReaderBuilder;
     use parquet::arrow::ProjectionMask;
     let at = |e: Error| e.with_file(label);
@@ -41,8 +116,6 @@ pub fn read_parquet(bytes: Vec<u8>, label: &Path, spec: &ReadSpec) -> Result<Tab
             "not a Parquet file (it does not start with the Parquet signature `PAR1`); give a Parquet file, or name a CSV file without the .parquet ending",
         )));
     }
-    let sha256 = crate::io::sha256_hex(&bytes);
-    let size = bytes.len() as u64;
     let damaged = |e: parquet::errors::ParquetError| {
         at(Error::input(format!(
             "not a readable Parquet file (truncated or damaged?): {e}"
@@ -52,22 +125,20 @@ pub fn read_parquet(bytes: Vec<u8>, label: &Path, spec: &ReadSpec) -> Result<Tab
         ParquetRecordBatchReaderBuilder::try_new(bytes::Bytes::from(bytes)).map_err(damaged)?;
     let schema = builder.schema().clone();
     let header = names_of(&schema);
-    let wanted = wanted_columns(&header, spec).map_err(at)?;
-    let roots: Vec<usize> = wanted.iter().map(|&(_, i)| i).collect();
+    let roots = pick(&header).map_err(at)?;
     let mask = ProjectionMask::roots(builder.parquet_schema(), roots.iter().copied());
     let reader = builder
         .with_projection(mask)
         .with_batch_size(65_536)
         .build()
         .map_err(damaged)?;
-    let mut batches = Vec::new();
-    for b in reader {
-        batches.push(b.map_err(|e| {
+    let batches = reader
+        .collect::<std::result::Result<Vec<_>, _>>()
+        .map_err(|e| {
             at(Error::input(format!(
                 "not a readable Parquet file (truncated or damaged?): {e}"
             )))
-        })?);
-    }
+        })?;
     let projected = match batches.first() {
         Some(b) => b.schema(),
         None => Arc::new(
@@ -76,11 +147,7 @@ pub fn read_parquet(bytes: Vec<u8>, label: &Path, spec: &ReadSpec) -> Result<Tab
                 .map_err(|e| at(Error::input(format!("cannot read the Parquet schema: {e}"))))?,
         ),
     };
-    let mut table = table_from_batches(&projected, &batches, label, spec)?;
-    table.header = header;
-    table.sha256 = sha256;
-    table.bytes = size;
-    Ok(table)
+    Ok((header, projected, batches))
 }
 
 fn sorted(v: &[usize]) -> Vec<usize> {

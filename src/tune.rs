@@ -488,6 +488,53 @@ pub fn evaluate(
         .collect()
 }
 
+/// The schemes `dovetail tune` compares: each configured pass alone, all passes together
+/// (when there are several), then each `[[scheme]]` of the config. With a budget, every extra
+/// scheme's blocking plan is checked against it first, as `link` would check it, before any
+/// scheme is evaluated (the configured passes were checked when the run was prepared).
+pub fn schemes_of(
+    prep: &Prepared,
+    budget: &crate::budget::Budget,
+) -> crate::Result<Vec<(String, Vec<Pass>)>> {
+    use crate::pipeline::{pass_labels, passes_from, MemoryEstimate};
+    let cfg = &prep.config;
+    let all = passes_from(cfg, &cfg.block, "block")?;
+    let mut schemes = Vec::new();
+    for (i, p) in all.iter().enumerate() {
+        let keys = cfg.block[i].keys.join(" + ");
+        schemes.push((format!("{}: {keys}", p.name), vec![p.clone()]));
+    }
+    if all.len() > 1 {
+        schemes.push(("all passes".to_string(), all.clone()));
+    }
+    for (i, sc) in cfg.scheme.iter().enumerate() {
+        let passes = passes_from(cfg, &sc.block, &format!("scheme[{}].block", i + 1))?;
+        if let Some(budget) = budget.resolve() {
+            let plan = block::plan(&prep.records, &passes);
+            let memory =
+                MemoryEstimate::new(prep.left.bytes + prep.right.bytes, plan.pairs_per_pass());
+            let mut labels = pass_labels(&sc.block, &passes);
+            for l in &mut labels {
+                l.name = format!("{} of scheme `{}`", l.name, sc.name);
+            }
+            budget.check(&memory, &labels)?;
+        }
+        schemes.push((sc.name.clone(), passes));
+    }
+    Ok(schemes)
+}
+
+/// The rows as tune.csv: a header, then one line per scheme.
+pub fn csv_bytes(rows: &[SchemeResult]) -> crate::Result<Vec<u8>> {
+    let mut c = csv::Writer::from_writer(Vec::new());
+    for r in rows {
+        c.serialize(r)
+            .map_err(|e| crate::Error::output(format!("cannot render tune.csv: {e}")))?;
+    }
+    c.into_inner()
+        .map_err(|e| crate::Error::output(format!("cannot render tune.csv: {e}")))
+}
+
 /// The table as aligned text.
 pub fn table_text(rows: &[SchemeResult]) -> String {
     let w = rows

@@ -15,7 +15,7 @@ pub fn run(args: Args) -> Result<ExitCode> {
     let (config, progress) = args.run.start()?;
     let _claim = dovetail::folder::claim(&args.run.out)?;
     let mut prep = pipeline::prepare_within(config, &progress, &args.run.budget())?;
-    let assessment = pipeline::assess_only(&mut prep, &progress);
+    let assessment = pipeline::assess_only(&mut prep, &progress)?;
     progress.finish();
     super::print_warnings(&prep.warnings, args.run.quiet);
     if !args.run.quiet {

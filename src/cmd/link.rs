@@ -27,7 +27,7 @@ pub fn run(args: Args) -> Result<ExitCode> {
     let _claim = dovetail::folder::claim(&args.run.out)?;
     let stop = args.stop_if_infeasible || config.link.stop_if_infeasible;
     let mut prep = pipeline::prepare_within(config, &progress, &args.run.budget())?;
-    let linkage = pipeline::link(&mut prep, &progress);
+    let linkage = pipeline::link(&mut prep, &progress)?;
     progress.finish();
     super::print_warnings(&prep.warnings, args.run.quiet);
     if !args.run.quiet {

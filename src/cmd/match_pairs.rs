@@ -1,6 +1,6 @@
 //! `dovetail match`: the one-to-one optimum of pairs scored elsewhere.
 
-use dovetail::io::{self, OutputSet};
+use dovetail::io;
 use dovetail::{matching, Error, Result};
 use std::path::PathBuf;
 use std::process::ExitCode;
@@ -42,25 +42,7 @@ pub fn run(args: Args) -> Result<ExitCode> {
     let clock = std::time::Instant::now();
     let m = matching::max_weight_matching(p.left_ids.len(), &p.left, &p.right, &w);
     let solve_secs = clock.elapsed().as_secs_f64();
-    let stamp = dovetail::folder::Stamp {
-        command: "match",
-        fingerprint: None,
-    };
-    let mut out = OutputSet::for_run(&args.out, stamp)?;
-    out.write("links.csv", |f| {
-        writeln!(f, "left_id,right_id,weight")?;
-        let mut wr = csv::Writer::from_writer(f);
-        for &i in &m.chosen {
-            wr.write_record([
-                p.left_ids[p.left[i] as usize].as_str(),
-                p.right_ids[p.right[i] as usize].as_str(),
-                &p.weight[i].to_string(),
-            ])
-            .map_err(|e| std::io::Error::other(e.to_string()))?;
-        }
-        wr.flush()
-    })?;
-    out.commit()?;
+    dovetail::report::render_matching(&p, &m)?.write_to(&args.out, false)?;
     println!("links: {}", m.chosen.len());
     println!("total weight: {}", m.total);
     eprintln!("time: reading {read_secs:.3}s, matching {solve_secs:.3}s");

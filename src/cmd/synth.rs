@@ -1,8 +1,7 @@
 //! `dovetail synth`: invented demo data with known truth.
 
-use dovetail::io::OutputSet;
 use dovetail::synth::{self, Scenario, SynthOptions};
-use dovetail::{Error, Result};
+use dovetail::Result;
 use std::path::PathBuf;
 use std::process::ExitCode;
 
@@ -49,63 +48,23 @@ pub struct Args {
 }
 
 pub fn run(args: Args) -> Result<ExitCode> {
-    if args.rows == 0 {
-        return Err(Error::config("--rows must be at least 1"));
-    }
-    let shares = [
-        args.overlap,
-        args.noise,
-        args.twins,
-        args.movers.unwrap_or(0.0),
-        args.household_moves,
-        args.relatives,
-        args.duplicates,
-    ];
-    if shares.iter().any(|v| !(0.0..=1.0).contains(v)) {
-        return Err(Error::config(
-            "--overlap, --noise, --twins, --movers, --household-moves, --relatives and --duplicates must lie within [0, 1]",
-        ));
-    }
-    let mut blank = Vec::new();
-    for b in &args.blank {
-        let parsed = Scenario::parse_blank(b)
-            .filter(|(col, _)| Scenario::blank_columns().contains(&col.as_str()));
-        match parsed {
-            Some(p) => blank.push(p),
-            None => {
-                return Err(Error::config(format!(
-                "--blank `{b}`: give COLUMN=RATE with a rate in [0, 1] and one of the columns {}",
-                Scenario::blank_columns().join(", ")
-            )))
-            }
-        }
-    }
-    let s = synth::generate_scenario(
-        &SynthOptions {
-            rows: args.rows,
-            overlap: args.overlap,
-            noise: args.noise,
-            seed: args.seed,
-            twins: args.twins,
-        },
-        &Scenario {
-            movers: args.movers,
-            household_moves: args.household_moves,
-            relatives: args.relatives,
-            duplicates: args.duplicates,
-            blank,
-        },
-    );
-    let mut out = OutputSet::new(&args.out)?;
-    for (name, text) in [
-        ("left.csv", &s.left_csv),
-        ("right.csv", &s.right_csv),
-        ("truth.csv", &s.truth_csv),
-        ("config.toml", &s.config_toml),
-    ] {
-        out.write(name, |w| w.write_all(text.as_bytes()))?;
-    }
-    out.commit()?;
+    let opts = SynthOptions {
+        rows: args.rows,
+        overlap: args.overlap,
+        noise: args.noise,
+        seed: args.seed,
+        twins: args.twins,
+    };
+    let mut scenario = Scenario {
+        movers: args.movers,
+        household_moves: args.household_moves,
+        relatives: args.relatives,
+        duplicates: args.duplicates,
+        blank: Vec::new(),
+    };
+    scenario.check(&opts, &args.blank)?;
+    let s = synth::generate_scenario(&opts, &scenario);
+    s.write_to(&args.out)?;
     println!(
         "wrote {} left and {} right records ({} true pairs) to {}",
         s.left_csv.lines().count().saturating_sub(1),

@@ -568,8 +568,14 @@ fn write_summary(out: &mut OutputSet, s: &Summary) -> Result<()> {
 
 /// Writes summary.json for `assess`.
 pub fn write_assessment(dir: &Path, prep: &Prepared, a: &Assessment) -> Result<Vec<PathBuf>> {
+    render_assessment(prep, a)?.write_to(dir, false)
+}
+
+/// The outputs of `assess` (summary.json) in memory; [`crate::folder::Rendered::write_to`]
+/// lands them as [`write_assessment`] does.
+pub fn render_assessment(prep: &Prepared, a: &Assessment) -> Result<crate::folder::Rendered> {
     let run_date = run_date()?;
-    let mut out = OutputSet::for_run(dir, crate::folder::stamp_of(prep, "assess"))?;
+    let mut out = OutputSet::in_memory(crate::folder::stamp_of(prep, "assess"));
     let extra = SummaryExtra {
         run_date: &run_date,
         outcomes: None,
@@ -577,7 +583,7 @@ pub fn write_assessment(dir: &Path, prep: &Prepared, a: &Assessment) -> Result<V
         stopped: false,
     };
     write_summary(&mut out, &summary(prep, a, None, "assess", extra))?;
-    out.commit()
+    Ok(out.into_rendered())
 }
 
 /// The table of an earlier `dovetail tune --out DIR`, when DIR/tune.csv is there, reads, and
@@ -1031,6 +1037,33 @@ pub fn write_linkage(
 pub fn render_linkage(prep: &Prepared, l: &Linkage) -> Result<crate::folder::Rendered> {
     let mut out = OutputSet::in_memory(crate::folder::stamp_of(prep, "link"));
     emit_linkage(&mut out, None, prep, l, false)?;
+    Ok(out.into_rendered())
+}
+
+/// The output of `match` in memory: links.csv (`left_id,right_id,weight`, the chosen pairs
+/// in the order given).
+pub fn render_matching(
+    p: &crate::io::ScoredPairs,
+    m: &crate::matching::Matching,
+) -> Result<crate::folder::Rendered> {
+    let stamp = crate::folder::Stamp {
+        command: "match",
+        fingerprint: None,
+    };
+    let mut out = OutputSet::in_memory(stamp);
+    out.write("links.csv", |f| {
+        writeln!(f, "left_id,right_id,weight")?;
+        let mut wr = csv::Writer::from_writer(f);
+        for &i in &m.chosen {
+            wr.write_record([
+                p.left_ids[p.left[i] as usize].as_str(),
+                p.right_ids[p.right[i] as usize].as_str(),
+                &p.weight[i].to_string(),
+            ])
+            .map_err(|e| std::io::Error::other(e.to_string()))?;
+        }
+        wr.flush()
+    })?;
     Ok(out.into_rendered())
 }
 

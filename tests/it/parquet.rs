@@ -78,18 +78,24 @@ fn read_back(path: &Path) -> Vec<arrow_array::RecordBatch> {
         .collect()
 }
 
-#[test]
-fn parquet_outputs_hold_the_csv_rows_with_numbers_as_floats() {
-    use arrow_array::cast::AsArray;
-    use arrow_array::types::Float64Type;
-    let dir = tempfile::tempdir().unwrap();
-    let out = dir.path().join("out");
+/// Links the sample tables into `dir/out` with `--parquet`; returns the folder.
+fn sample_with_parquet_outputs(dir: &Path) -> PathBuf {
+    let out = dir.join("out");
     let o = run_link(
         &root().join("config-examples/sample.toml"),
         &out,
         &["--quiet", "--parquet"],
     );
     assert!(o.status.success(), "{}", stderr(&o));
+    out
+}
+
+#[test]
+fn parquet_outputs_hold_the_csv_rows_with_numbers_as_floats() {
+    use arrow_array::cast::AsArray;
+    use arrow_array::types::Float64Type;
+    let dir = tempfile::tempdir().unwrap();
+    let out = sample_with_parquet_outputs(dir.path());
     let (head, rows) = crate::common::read_csv(&out.join("links.csv"));
     let batches = read_back(&out.join("links.parquet"));
     let n: usize = batches.iter().map(|b| b.num_rows()).sum();
@@ -230,5 +236,32 @@ fn parquet_errors_name_the_row_and_column() {
     assert!(
         err.contains("sample_left.parquet: ") && err.contains("surname"),
         "{err}"
+    );
+}
+
+#[test]
+fn match_reads_scored_pairs_from_parquet_as_from_csv() {
+    let dir = tempfile::tempdir().unwrap();
+    let out = sample_with_parquet_outputs(dir.path());
+    let mut said = Vec::new();
+    for name in ["links.csv", "links.parquet"] {
+        let to = dir.path().join(format!("match-{name}"));
+        let o = crate::common::run(&[
+            "match",
+            "--pairs",
+            out.join(name).to_str().unwrap(),
+            "--out",
+            to.to_str().unwrap(),
+        ]);
+        assert!(o.status.success(), "{}", stderr(&o));
+        said.push((
+            String::from_utf8_lossy(&o.stdout).into_owned(),
+            std::fs::read(to.join("links.csv")).unwrap(),
+        ));
+    }
+    assert!(said[0].0.contains("links: "), "{}", said[0].0);
+    assert_eq!(
+        said[0], said[1],
+        "match gave different answers on CSV and Parquet pairs"
     );
 }

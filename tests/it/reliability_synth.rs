@@ -48,7 +48,7 @@ fn run_with(
     }
     let config = Config::from_text(&cfg, dir).expect("config");
     let mut prep = pipeline::prepare(config, &Silent).expect("prepare");
-    let linkage = pipeline::link(&mut prep, &Silent);
+    let linkage = pipeline::link(&mut prep, &Silent).expect("link");
     let truth = crate::common::truth_pairs(&s.truth_csv);
     Run {
         prep,

@@ -375,7 +375,7 @@ fn serious_warnings_come_first_and_set_apart() {
     prep.warnings.push(format!(
         "{SERIOUS_PREFIX}field `sex` is coded M/F on one side and 1/2 on the other"
     ));
-    let linkage = pipeline::link(&mut prep, &Silent);
+    let linkage = pipeline::link(&mut prep, &Silent).expect("link");
     let out = dir.path().join("out");
     dovetail::report::write_linkage(&out, &prep, &linkage, false).unwrap();
     let html = std::fs::read_to_string(out.join("report.html")).unwrap();

@@ -267,7 +267,7 @@ proptest! {
         let config = Config::from_text(SMALL_CONFIG, dir.path()).unwrap();
         match pipeline::prepare(config, &Silent) {
             Ok(mut prep) => {
-                let link = pipeline::link(&mut prep, &Silent);
+                let link = pipeline::link(&mut prep, &Silent).expect("link");
                 let mut seen_l = vec![0; l.len()];
                 let mut seen_r = vec![0; r.len()];
                 for &i in &link.links {

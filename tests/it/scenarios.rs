@@ -359,7 +359,7 @@ pub fn prepare(case: &Case, seed: u64, dir: &Path) -> (Prepared, HashSet<(u32, u
 
 /// Links a prepared run and scores it against the truth.
 pub fn score(prep: &mut Prepared, truth: &HashSet<(u32, u32)>) -> Outcome {
-    let l = pipeline::link(prep, &Silent);
+    let l = pipeline::link(prep, &Silent).expect("link");
     let n_left = prep.records.n_left();
     let true_cands: Vec<(u32, u32)> = (0..prep.cands.len())
         .map(|i| (prep.cands.left[i], prep.cands.right[i]))
