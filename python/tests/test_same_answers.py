@@ -67,6 +67,8 @@ def test_cli_on_parquet(cli, cli_sample, tmp_path):
     for name in LINK_TABLES:
         assert (out / name).read_bytes() == (cli_sample / name).read_bytes(), name
     assert folder_answer(out) == folder_answer(cli_sample)
+    # And the third pair: Python on frames against the CLI on Parquet.
+    assert_same_as(out, dovetail.link(*sample_frames(), SAMPLE_CONFIG))
 
 
 def test_write_gives_the_cli_files(cli_sample, tmp_path):
