@@ -50,7 +50,9 @@ pub struct Fitted {
 }
 
 /// Fits the laws and weighs every candidate pair (see the module doc); warnings in plain words
-/// go to `warnings`.
+/// go to `warnings`. `cancelled` is asked before each refinement round (a round of a loose
+/// million-record run takes tens of seconds); when it says yes the fit ends with an error of
+/// kind [`crate::ErrorKind::Cancelled`].
 pub fn fit(
     config: &Config,
     records: &Records,
@@ -58,6 +60,7 @@ pub fn fit(
     comparison: &Comparison,
     counts: &PatternCounts,
     warnings: &mut Vec<String>,
+    cancelled: &dyn Fn() -> bool,
 ) -> Result<Fitted> {
     let known = known_laws(config, records, comparison, counts)?;
     let pp = PairPatterns::new(comparison, counts);
@@ -115,6 +118,15 @@ pub fn fit(
         let mut prior =
             confidence::LinkPrior::new(records.n_left(), &cands.left, &cands.right, &pooled_group);
         for round in 0..rounds {
+            if cancelled() {
+                return Err(Error::new(
+                    crate::ErrorKind::Cancelled,
+                    format!(
+                        "the run was stopped in round {} of the fitting stage",
+                        round + 1
+                    ),
+                ));
+            }
             let marg =
                 confidence::marginals(records.n_left(), &cands.left, &cands.right, &theta, &rough);
             gamma = pattern_shares(&pp, counts, &marg.p);

@@ -547,6 +547,7 @@ pub fn prepare_given(
         &comparison,
         &counts,
         &mut warnings,
+        &|| progress.cancelled(),
     )?;
     let names: Vec<String> = config.field.iter().map(|f| f.name.clone()).collect();
     let split: Vec<Option<f64>> = frequency
@@ -1133,6 +1134,20 @@ mod tests {
         };
         assert_eq!(e.kind(), crate::ErrorKind::Cancelled);
         assert_eq!(*stop.seen.lock().expect("lock"), ["reading", "blocking"]);
+        // Stopped inside the fitting stage: the fit asks before each of its rounds.
+        let inside = StopAfter {
+            after: "fitting",
+            seen: Default::default(),
+        };
+        let e = match prepare(Config::from_path(&path).expect("config"), &inside) {
+            Ok(_) => panic!("a run cancelled in fitting went on"),
+            Err(e) => e,
+        };
+        assert_eq!(e.kind(), crate::ErrorKind::Cancelled);
+        assert!(
+            e.to_string().contains("round 1 of the fitting stage"),
+            "{e}"
+        );
         // Not cancelled: the same run reaches the last stage.
         let late = StopAfter {
             after: "never",

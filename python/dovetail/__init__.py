@@ -357,11 +357,22 @@ def link(
             is over it (default: a safe share of the machine's memory).
 
     Raises:
-        ConfigError, InputError (with ``file``, ``row``, ``column``), MemoryBudgetError,
-        InfeasibleError; KeyboardInterrupt when stopped with Ctrl-C.
+        ConfigError, InputError (with ``file``, ``row``, ``column``), MemoryBudgetError;
+        InfeasibleError when the verdict is infeasible and the config sets
+        ``stop_if_infeasible`` (its ``result`` holds summary.json and report.html, which
+        say why, as the CLI writes them); KeyboardInterrupt when stopped with Ctrl-C.
     """
     args = _run_args(left, right, config, threads, progress, memory_budget)
-    return Linkage(_dovetail.run_config("link", *args, 0, 0))
+    native = _dovetail.run_config("link", *args, 0, 0)
+    if native.stopped:
+        e = InfeasibleError(
+            "the linkage is infeasible; no links were made (stop_if_infeasible is set); "
+            "the exception's `result` (summary, report_html, write) says why"
+        )
+        e.result = Assessment(native)
+        e.file = e.row = e.place = e.column = None
+        raise e
+    return Linkage(native)
 
 
 def assess(

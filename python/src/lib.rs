@@ -38,6 +38,10 @@ struct Outputs {
     text: String,
     /// Numeric columns of the tables, by file name.
     numeric: &'static [&'static str],
+    /// The run stopped as infeasible (`stop_if_infeasible`): only summary.json and
+    /// report.html, which say why, as the CLI writes them with exit status 3.
+    #[pyo3(get)]
+    stopped: bool,
 }
 
 #[pymethods]
@@ -316,17 +320,17 @@ fn link(mut prep: pipeline::Prepared, p: &Relay) -> Result<Outputs> {
     let stop = prep.config.link.stop_if_infeasible;
     let linkage = pipeline::link(&mut prep, p)?;
     let text = report::assessment_text(&prep, &linkage.assessment);
-    if stop && linkage.assessment.verdict == dovetail::reliability::Verdict::Infeasible {
-        return Err(Error::new(
-            dovetail::ErrorKind::Infeasible,
-            "the linkage is infeasible; no links were made (stop_if_infeasible is set)",
-        ));
-    }
+    let stopped = stop && linkage.assessment.verdict == dovetail::reliability::Verdict::Infeasible;
     Ok(Outputs {
-        rendered: report::render_linkage(&prep, &linkage)?,
+        rendered: if stopped {
+            report::render_stopped(&prep, &linkage)?
+        } else {
+            report::render_linkage(&prep, &linkage)?
+        },
         warnings: prep.warnings.clone(),
         text,
         numeric: tabular::NUMERIC_COLUMNS,
+        stopped,
     })
 }
 
@@ -337,6 +341,7 @@ fn assess(mut prep: pipeline::Prepared, p: &Relay) -> Result<Outputs> {
         warnings: prep.warnings.clone(),
         text: report::assessment_text(&prep, &assessment),
         numeric: &[],
+        stopped: false,
     })
 }
 
@@ -366,6 +371,7 @@ fn tune(
         warnings: prep.warnings.clone(),
         text: tuning::table_text(&rows),
         numeric: TUNE_NUMERIC,
+        stopped: false,
     })
 }
 
@@ -402,6 +408,7 @@ fn match_pairs(
             warnings: Vec::new(),
             text: format!("links: {}\ntotal weight: {}\n", m.chosen.len(), m.total),
             numeric: &["weight"],
+            stopped: false,
         })
     })
 }
@@ -466,6 +473,7 @@ fn synth(
                     s.true_pairs
                 ),
                 numeric: &[],
+                stopped: false,
             },
             json,
         ))

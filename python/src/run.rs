@@ -5,9 +5,10 @@
 //! process's shared pool). The calling thread waits in slices of [`POLL`] without the GIL;
 //! between slices it hands the stage names gathered so far to the callback and asks Python
 //! whether a signal arrived. On Ctrl-C it sets the run's stop flag, which the pipeline reads
-//! before each stage ([`dovetail::pipeline::Progress::cancelled`]), waits up to [`GRACE`]
-//! for the worker to end, and raises `KeyboardInterrupt`; a worker still inside a long stage
-//! then ends at that stage's end, writes nothing and frees what it holds.
+//! before each stage and each round of the fit ([`dovetail::pipeline::Progress::cancelled`]),
+//! waits up to [`GRACE`] for the worker to end, and raises `KeyboardInterrupt`; a worker still
+//! inside a long stage then ends at that stage's (or round's) end, writes nothing and frees
+//! what it holds.
 
 use crate::errors;
 use dovetail::pipeline::Progress;

@@ -124,8 +124,13 @@ def test_infeasible_with_stop_if_infeasible(small):
     cfg["field"] = [f for f in cfg["field"] if f["name"] == "sex"]
     cfg["block"] = [{"keys": ["sex"]}]
     cfg["link"]["stop_if_infeasible"] = True
-    with pytest.raises(dovetail.InfeasibleError):
+    with pytest.raises(dovetail.InfeasibleError) as e:
         dovetail.link(small.left, small.right, cfg, memory_budget="none")
+    # What the CLI writes when it stops (exit 3): summary.json and report.html, saying why.
+    stopped = e.value.result
+    assert sorted(stopped.files) == ["report.html", "summary.json"]
+    assert stopped.summary["stopped_infeasible"] is True
+    assert stopped.verdict == "infeasible"
 
 
 def test_output_error_leaves_nothing_behind(small, tmp_path):

@@ -1212,16 +1212,34 @@ fn emit_linkage(
 /// For a run that `stop_if_infeasible` stopped: writes only summary.json and report.html,
 /// which say that no links were written because the verdict is infeasible, and why.
 pub fn write_stopped(dir: &Path, prep: &Prepared, l: &Linkage) -> Result<Vec<PathBuf>> {
-    let run_date = run_date()?;
     let mut out = OutputSet::for_run(dir, crate::folder::stamp_of(prep, "link"))?;
+    let tune = read_tune(dir, prep);
+    fill_stopped(&mut out, prep, l, tune.as_deref())?;
+    out.commit()
+}
+
+/// The outputs of a run stopped as infeasible, in memory (no tune table: there is no folder
+/// to read one from); [`write_stopped`] writes the same into a folder.
+pub fn render_stopped(prep: &Prepared, l: &Linkage) -> Result<crate::folder::Rendered> {
+    let mut out = OutputSet::in_memory(crate::folder::stamp_of(prep, "link"));
+    fill_stopped(&mut out, prep, l, None)?;
+    Ok(out.into_rendered())
+}
+
+fn fill_stopped(
+    out: &mut OutputSet,
+    prep: &Prepared,
+    l: &Linkage,
+    tune: Option<&[html::TuneRow]>,
+) -> Result<()> {
+    let run_date = run_date()?;
     let mut steps = vec![STOPPED_STEP.to_string()];
     steps.extend(next_steps(prep, &l.assessment, None));
-    let tune = read_tune(dir, prep);
     let page = html::page(&html::Context {
         prep,
         linkage: l,
         review: &[],
-        tune: tune.as_deref(),
+        tune,
         outcomes: None,
         next_steps: &steps,
         run_date: &run_date,
@@ -1233,8 +1251,7 @@ pub fn write_stopped(dir: &Path, prep: &Prepared, l: &Linkage) -> Result<Vec<Pat
         next_steps: steps,
         stopped: true,
     };
-    write_summary(&mut out, &summary(prep, &l.assessment, None, "link", extra))?;
-    out.commit()
+    write_summary(out, &summary(prep, &l.assessment, None, "link", extra))
 }
 
 /// The first step of a run stopped by `stop_if_infeasible`.
