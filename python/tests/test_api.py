@@ -131,7 +131,7 @@ def test_progress_callback_hears_every_stage():
 
 
 def test_the_gil_is_released_while_the_stages_run():
-    s = dovetail.synth(20000, seed=2)
+    s = dovetail.synth(50000, seed=2)
     ticks = 0
     done = threading.Event()
 
