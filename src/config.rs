@@ -196,6 +196,15 @@ pub struct LinkSpec {
     /// Stop with exit status 3 instead of writing links when the verdict is infeasible.
     #[serde(default)]
     pub stop_if_infeasible: bool,
+    /// A clerks' decisions file (`decisions.csv` as `dovetail review` writes it), relative
+    /// to the config file: "same person" pairs are kept as links and label the fit,
+    /// "different people" pairs are never linked.
+    #[serde(default)]
+    pub decisions: Option<PathBuf>,
+    /// Links to draw into audit.csv for `dovetail review --audit` and `dovetail audit`: a
+    /// seeded sample stratified by confidence band (default: none).
+    #[serde(default)]
+    pub audit_sample: Option<usize>,
 }
 
 /// EM settings.
@@ -292,6 +301,8 @@ impl Default for LinkSpec {
             target_precision: None,
             review_band: default_review_band(),
             stop_if_infeasible: false,
+            decisions: None,
+            audit_sample: None,
         }
     }
 }
@@ -397,6 +408,8 @@ const LINK_KEYS: &[&str] = &[
     "target_precision",
     "review_band",
     "stop_if_infeasible",
+    "decisions",
+    "audit_sample",
 ];
 const MODEL_KEYS: &[&str] = &[
     "max_iterations",

@@ -49,20 +49,42 @@ pub struct Fitted {
     pub patterns: PairPatterns,
 }
 
+/// What the fit reads.
+#[derive(Clone, Copy)]
+pub struct Input<'a> {
+    /// The config (model settings, labelled pairs, random-pair u).
+    pub config: &'a Config,
+    /// The interned records.
+    pub records: &'a Records,
+    /// The candidate pairs.
+    pub cands: &'a Candidates,
+    /// Their agreement patterns.
+    pub comparison: &'a Comparison,
+    /// The pattern counts.
+    pub counts: &'a PatternCounts,
+    /// Pairs a clerk decided are the same person, as (left, right) record indices: labelled
+    /// true pairs, like `[model] labelled`.
+    pub decided_same: &'a [(u32, u32)],
+}
+
 /// Fits the laws and weighs every candidate pair (see the module doc); warnings in plain words
 /// go to `warnings`. `cancelled` is asked before each refinement round (a round of a loose
 /// million-record run takes tens of seconds); when it says yes the fit ends with an error of
 /// kind [`crate::ErrorKind::Cancelled`].
 pub fn fit(
-    config: &Config,
-    records: &Records,
-    cands: &Candidates,
-    comparison: &Comparison,
-    counts: &PatternCounts,
+    input: &Input<'_>,
     warnings: &mut Vec<String>,
     cancelled: &dyn Fn() -> bool,
 ) -> Result<Fitted> {
-    let known = known_laws(config, records, comparison, counts)?;
+    let Input {
+        config,
+        records,
+        cands,
+        comparison,
+        counts,
+        decided_same,
+    } = *input;
+    let known = known_laws(config, records, comparison, counts, decided_same)?;
     let pp = PairPatterns::new(comparison, counts);
     let fit = if cands.is_empty() {
         model::null_fit(&counts.levels)
@@ -275,13 +297,14 @@ pub fn check(
     })
 }
 
-/// Laws known from outside the EM: m from the labelled pairs and u from random pairs, as the
-/// config asks.
+/// Laws known from outside the EM: m from the labelled pairs (the config's file and the
+/// clerks' "same person" decisions) and u from random pairs, as the config asks.
 fn known_laws(
     config: &Config,
     records: &Records,
     comparison: &Comparison,
     counts: &PatternCounts,
+    decided_same: &[(u32, u32)],
 ) -> Result<model::Known> {
     let levels_of = |cands: &Candidates| -> Vec<Vec<u8>> {
         let c = compare::compare(records, cands);
@@ -291,6 +314,12 @@ fn known_laws(
             .collect()
     };
     let mut known = model::Known::default();
+    let mut labelled = Candidates::default();
+    for &(l, r) in decided_same {
+        labelled.left.push(l);
+        labelled.right.push(r);
+        labelled.passes.push(0);
+    }
     if let Some(path) = &config.model.labelled {
         let path = config.resolve(path);
         let lmap: HashMap<&str, u32> = records
@@ -305,7 +334,8 @@ fn known_laws(
             .enumerate()
             .map(|(i, s)| (s.as_str(), i as u32))
             .collect();
-        let mut cands = Candidates::default();
+        let cands = &mut labelled;
+        let before = cands.len();
         for (l, r, line) in io::read_id_pairs(&path)? {
             let find = |map: &HashMap<&str, u32>, id: &str, col: &str| {
                 map.get(id).copied().ok_or_else(|| {
@@ -322,11 +352,13 @@ fn known_laws(
             cands.right.push(find(&rmap, &r, "right_id")?);
             cands.passes.push(0);
         }
-        if cands.is_empty() {
+        if cands.len() == before {
             return Err(Error::input("no labelled pairs in the file").with_file(&path));
         }
-        known.m = Some(model::law_of(&counts.levels, &levels_of(&cands)));
         known.fix_m = config.model.labelled_use.as_deref() == Some("fix");
+    }
+    if !labelled.is_empty() {
+        known.m = Some(model::law_of(&counts.levels, &levels_of(&labelled)));
     }
     if config.model.u_from.as_deref() == Some("random")
         && records.n_left() > 0

@@ -9,7 +9,9 @@
 //!   is dropped, except `tune.csv` when it came from the same config and inputs (the report
 //!   shows it);
 //! - `tune` keeps the other outputs only when they came from the same config and inputs;
-//! - `score` adds `score.json` beside the links it scored and keeps everything else.
+//! - `score` adds `score.json` beside the links it scored and keeps everything else;
+//!   `audit` likewise adds `audit.json` and rewrites report.html with the audit in it.
+//!   The clerks' `decisions.csv` is not a dovetail output: it is always carried over.
 //!
 //! Only the file names dovetail writes ([`OWNED`]) are ever dropped; anything else in the
 //! folder is carried over.
@@ -51,6 +53,11 @@ pub const OWNED: &[&str] = &[
     "report.html",
     "tune.csv",
     "score.json",
+    "audit.csv",
+    "audit.parquet",
+    "review_context.csv",
+    "review_context.parquet",
+    "audit.json",
     RECORD,
 ];
 
@@ -122,7 +129,7 @@ pub fn file_matches(dir: &Path, name: &str, fingerprint: &str) -> bool {
 fn keeps(stamp: &Stamp, earlier: &Record, name: &str) -> bool {
     let same = stamp.fingerprint.is_some() && earlier.fingerprint == stamp.fingerprint;
     match stamp.command {
-        "score" => true,
+        "score" | "audit" => true,
         "tune" => same,
         _ => same && name == "tune.csv",
     }
@@ -614,7 +621,7 @@ impl OutputSet {
         }
         files.sort_by(|a, b| a.name.cmp(&b.name));
         let fingerprint = match (stamp.command, read_record(&self.dir)) {
-            ("score", Some(e)) => e.fingerprint,
+            ("score" | "audit", Some(e)) => e.fingerprint,
             _ => stamp.fingerprint.clone(),
         };
         let record = Record {

@@ -26,6 +26,7 @@ pub mod posterior;
 pub mod records;
 pub mod reliability;
 pub mod report;
+pub mod review;
 pub mod rng;
 pub mod score;
 pub mod synth;

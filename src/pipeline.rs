@@ -193,6 +193,8 @@ pub struct Prepared {
     pub check: Option<ModelCheck>,
     /// Expected duplicate pairs inside each table (None without candidates).
     pub duplicates: Option<crate::duplicates::Duplicates>,
+    /// The clerks' decisions in force, as candidate pairs (None without `link.decisions`).
+    pub decisions: Option<crate::review::Applied>,
     /// Warnings for the user, in plain words (counts only, never record values).
     pub warnings: Vec<String>,
     /// Seconds per stage.
@@ -519,6 +521,20 @@ pub fn prepare_given(
     if cands.is_empty() {
         warnings.push("no candidate pairs: no pass gave any two records the same key; every record stays unlinked".into());
     }
+    let decisions = match &config.link.decisions {
+        Some(path) => {
+            let path = config.resolve(path);
+            let d = crate::review::apply(&path, &records, &cands.left, &cands.right)?;
+            if d.not_candidates > 0 {
+                warnings.push(format!(
+                    "{} decided pair(s) in the decisions file are not candidate pairs of this run (has the blocking changed since the review?); they are not applied",
+                    d.not_candidates
+                ));
+            }
+            Some(d)
+        }
+        None => None,
+    };
     clock.lap("blocking", &mut timings);
 
     begin(progress, "comparing")?;
@@ -541,11 +557,14 @@ pub fn prepare_given(
         theta,
         patterns,
     } = fit::fit(
-        &config,
-        &records,
-        &cands,
-        &comparison,
-        &counts,
+        &fit::Input {
+            config: &config,
+            records: &records,
+            cands: &cands,
+            comparison: &comparison,
+            counts: &counts,
+            decided_same: decisions.as_ref().map_or(&[][..], |d| &d.same_records[..]),
+        },
         &mut warnings,
         &|| progress.cancelled(),
     )?;
@@ -611,6 +630,7 @@ pub fn prepare_given(
         agreement,
         check,
         duplicates: None,
+        decisions,
         warnings,
         timings,
     };
@@ -958,6 +978,10 @@ pub fn cutoff_for_precision(confidences: &[f64], target: f64) -> f64 {
 
 /// The full run after [`prepare`]: match, assess, score confidence, decide.
 pub fn link(prep: &mut Prepared, progress: &dyn Progress) -> Result<Linkage> {
+    if let Some(d) = &prep.decisions {
+        // Decided pairs are known: the matching and the confidences take them as given.
+        crate::review::force(&mut prep.theta, &prep.cands.left, &prep.cands.right, d);
+    }
     let (matching, assessment) = match_and_assess(prep, progress)?;
     let mut clock = Clock::new();
     begin(progress, "confidence")?;
@@ -980,7 +1004,7 @@ pub fn link(prep: &mut Prepared, progress: &dyn Progress) -> Result<Linkage> {
         None => prep.config.link.min_confidence,
     };
     let identified = reliability::identification_problems(&prep.fit, &prep.separations).is_empty();
-    let links: Vec<usize> = if identified {
+    let mut links: Vec<usize> = if identified {
         matching
             .chosen
             .iter()
@@ -991,6 +1015,12 @@ pub fn link(prep: &mut Prepared, progress: &dyn Progress) -> Result<Linkage> {
         // The classes are not identified: no link can be reported with any confidence.
         Vec::new()
     };
+    if let Some(d) = &prep.decisions {
+        // A clerk's "same person" is a link whatever the model says.
+        links.extend(d.same.iter().copied());
+        links.sort_unstable();
+        links.dedup();
+    }
     let (precision, recall) = estimate_intervals(prep, &links, &confidence.p);
     clock.lap("confidence", &mut prep.timings);
     begin(progress, "completeness")?;

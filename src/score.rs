@@ -76,8 +76,15 @@ pub fn wilson(k: usize, n: usize) -> [f64; 2] {
     if n == 0 {
         return [0.0, 1.0];
     }
-    let (k, n) = (k as f64, n as f64);
-    let p = k / n;
+    wilson_share(k as f64 / n as f64, n as f64)
+}
+
+/// Wilson's score interval at 95% for an observed share `p` over a (possibly effective,
+/// so not whole) sample size `n`; [0, 1] when `n` is not positive.
+pub fn wilson_share(p: f64, n: f64) -> [f64; 2] {
+    if n.is_nan() || n <= 0.0 {
+        return [0.0, 1.0];
+    }
     let z2 = Z95 * Z95;
     let den = 1.0 + z2 / n;
     let centre = (p + z2 / (2.0 * n)) / den;

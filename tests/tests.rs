@@ -31,6 +31,8 @@ mod parquet;
 mod reliability_synth;
 #[path = "it/report_html.rs"]
 mod report_html;
+#[path = "it/review_page.rs"]
+mod review_page;
 #[path = "it/robustness.rs"]
 mod robustness;
 #[path = "it/scenarios.rs"]

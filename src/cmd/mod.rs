@@ -2,8 +2,10 @@
 //! and a short `run` that calls the library's stages in order.
 
 mod assess;
+mod audit;
 mod link;
 mod match_pairs;
+mod review;
 mod score;
 mod synth;
 mod tune;
@@ -35,6 +37,8 @@ pub struct Cli {
 enum Command {
     Link(link::Args),
     Assess(assess::Args),
+    Review(review::Args),
+    Audit(audit::Args),
     Match(match_pairs::Args),
     Score(score::Args),
     Synth(synth::Args),
@@ -46,6 +50,8 @@ pub fn run(cli: Cli) -> Result<ExitCode> {
     match cli.command {
         Command::Link(a) => link::run(a),
         Command::Assess(a) => assess::run(a),
+        Command::Review(a) => review::run(a),
+        Command::Audit(a) => audit::run(a),
         Command::Match(a) => match_pairs::run(a),
         Command::Score(a) => score::run(a),
         Command::Synth(a) => synth::run(a),

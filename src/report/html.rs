@@ -18,6 +18,63 @@ const RUST: RGBColor = RGBColor(0xa8, 0x4a, 0x24);
 const SAND: RGBColor = RGBColor(0xd9, 0xc9, 0xa8);
 const PAPER: RGBColor = RGBColor(0xfb, 0xf8, 0xf1);
 
+/// Where `dovetail audit` puts the measured precision (replaced atomically, the rest of the
+/// page kept as it is).
+pub const AUDIT_MARK: &str = "<!-- dovetail:audit -->";
+/// The end of the audit's place.
+pub const AUDIT_END: &str = "<!-- /dovetail:audit -->";
+
+/// The audit's section of report.html.
+pub fn audit_section(a: &crate::review::AuditResult) -> String {
+    let mut h = String::new();
+    let _ = write!(
+        h,
+        "<section id=\"audit\"><h2>Precision measured by clerical review</h2>"
+    );
+    let f4 = |x: f64| format!("{x:.4}");
+    match a.measured {
+        None => {
+            let _ = write!(
+                h,
+                "<p>An audit sample of {} links was drawn; none is decided yet.</p>",
+                a.sampled
+            );
+        }
+        Some(m) => {
+            let verdict = match (a.estimated_precision, a.estimate_inside) {
+                (Some(_), Some(true)) => "The run's estimated precision lies <b>inside</b> the measured interval.".to_string(),
+                (Some(e), _) if e > m.interval[1] => "The run's estimated precision lies <b>above</b> the measured interval: the run overstates how many links are right. Trust the measured figure.".to_string(),
+                (Some(_), _) => "The run's estimated precision lies <b>below</b> the measured interval.".to_string(),
+                (None, _) => String::new(),
+            };
+            let _ = write!(
+                h,
+                "<p>Clerks decided {} of {} links drawn at random, stratified by confidence band ({} could not tell, {} not decided). Measured precision <b>{}</b>, 95% interval {} to {} (stratified estimate, Wilson interval at an effective sample size of {:.0}); estimated by the run: {}. {}</p>",
+                m.decided,
+                a.sampled,
+                a.unsure,
+                a.undecided,
+                f4(m.precision),
+                f4(m.interval[0]),
+                f4(m.interval[1]),
+                m.effective_n,
+                a.estimated_precision.map_or("–".into(), f4),
+                verdict
+            );
+        }
+    }
+    let _ = write!(h, "<table><tr><th>confidence</th><th>links</th><th>sampled</th><th>same person</th><th>different people</th><th>can't tell</th><th>not decided</th></tr>");
+    for b in &a.bands {
+        let _ = write!(
+            h,
+            "<tr><td>{} to {}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td></tr>",
+            b.band.from, b.band.to, b.band.links, b.band.sampled, b.tally.same, b.tally.different, b.tally.unsure, b.tally.undecided
+        );
+    }
+    let _ = write!(h, "</table><p>A clerk's judgement is itself fallible; it measures agreement with people, who see only these fields.</p></section>");
+    h
+}
+
 /// Escapes text for HTML element content and attribute values.
 pub fn escape(s: &str) -> String {
     let mut out = String::with_capacity(s.len());
@@ -1000,8 +1057,24 @@ pub fn page(ctx: &Context<'_>) -> String {
             }
             let _ = write!(h, "</table>");
         }
-        let _ = write!(h, "</section>");
+        let _ = write!(h, "<p>To decide them one at a time in a browser, run <code>dovetail review</code> on this folder; the decisions go to decisions.csv, and a run with <code>decisions</code> set under [link] applies them.</p></section>");
     }
+    if let Some(d) = &prep.decisions {
+        let _ = write!(
+            h,
+            "<section id=\"decisions\"><h2>Clerical decisions applied</h2><p>From the decisions file ({} lines, the last per pair in force): {} pair(s) decided the same person are links whatever their weight, and their records take no other link; {} pair(s) decided different people are never linked; {} left undecided (can't tell). The decided pairs also labelled the fit, as known true pairs. {}No conflict was found: no record is the same person as two others.</p></section>",
+            d.lines,
+            d.same_count,
+            d.different_count,
+            d.unsure_count,
+            if d.not_candidates > 0 {
+                format!("{} decided pair(s) are not candidate pairs of this run and were not applied. ", d.not_candidates)
+            } else {
+                String::new()
+            }
+        );
+    }
+    let _ = write!(h, "{AUDIT_MARK}{AUDIT_END}");
 
     inputs_section(&mut h, prep);
 

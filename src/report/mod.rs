@@ -241,12 +241,27 @@ pub struct Summary {
     /// count (zeros included); the counts add up to the side's unlinked records. Null for
     /// `assess` and for a run stopped by `stop_if_infeasible`.
     pub unlinked_reasons: Option<UnlinkedCounts>,
+    /// The clerks' decisions applied (`link.decisions`), by kind.
+    pub decisions: Option<crate::review::Applied>,
+    /// The audit sample drawn into audit.csv (`link.audit_sample`).
+    pub audit: Option<AuditSummary>,
     /// What to do next, derived from this run (the list report.html shows).
     pub next_steps: Vec<String>,
     /// Warnings, in plain words.
     pub warnings: Vec<String>,
     /// How the run was made.
     pub manifest: Manifest,
+}
+
+/// The audit sample in summary.json.
+#[derive(Debug, Clone, Serialize)]
+pub struct AuditSummary {
+    /// Links asked for.
+    pub sample: usize,
+    /// The seed (`assess.seed`).
+    pub seed: u64,
+    /// The confidence bands, their links and the links drawn from each.
+    pub bands: Vec<crate::review::AuditBand>,
 }
 
 /// The model check in summary.json.
@@ -414,6 +429,7 @@ pub fn estimates(l: &Linkage) -> (Option<f64>, Option<f64>) {
 /// What summary.json needs beyond the run: the date, and for `link` the outcome per record.
 struct SummaryExtra<'a> {
     run_date: &'a str,
+    audit: Option<AuditSummary>,
     outcomes: Option<&'a Outcomes>,
     next_steps: Vec<String>,
     stopped: bool,
@@ -553,6 +569,8 @@ fn summary(
             left: o.counts(true),
             right: o.counts(false),
         }),
+        decisions: prep.decisions.clone(),
+        audit: extra.audit,
         next_steps: extra.next_steps,
         warnings: prep.warnings.clone(),
         manifest: manifest(prep, extra.run_date),
@@ -578,6 +596,7 @@ pub fn render_assessment(prep: &Prepared, a: &Assessment) -> Result<crate::folde
     let mut out = OutputSet::in_memory(crate::folder::stamp_of(prep, "assess"));
     let extra = SummaryExtra {
         run_date: &run_date,
+        audit: None,
         outcomes: None,
         next_steps: next_steps(prep, a, None),
         stopped: false,
@@ -1150,43 +1169,37 @@ fn emit_linkage(
     unlinked(out, "unlinked_right.csv", false)?;
 
     let review = review_pairs(prep, l);
+    let status = |i: usize| outcomes.status(i).as_str().to_string();
     write_table(out, "review.csv", parquet, |w| {
-        let mut c = csv_writer(w);
-        let mut head: Vec<String> = [
-            "left_id",
-            "right_id",
-            "status",
-            "confidence",
-            "weight",
-            "found_by",
-        ]
-        .iter()
-        .map(|s| s.to_string())
-        .collect();
-        for n in &names {
-            head.push(format!("{n}_level"));
-            head.push(format!("{n}_left"));
-            head.push(format!("{n}_right"));
-        }
-        c.write_record(&head).map_err(to_io)?;
-        for &i in &review {
-            let (a, b) = (prep.cands.left[i] as usize, prep.cands.right[i] as usize);
-            let mut row = vec![
-                prep.records.left_ids[a].clone(),
-                prep.records.right_ids[b].clone(),
-                outcomes.status(i).as_str().to_string(),
-                confidence_csv(l.confidence.p[i], l.cutoff),
-                num(prep.weight[i]),
-                found_by(prep, i),
-            ];
-            for (k, f) in prep.config.field.iter().enumerate() {
-                row.push(level_text(prep, i, k));
-                row.push(prep.left.value(f.left_column(), a));
-                row.push(prep.right.value(f.right_column(), b));
-            }
-            c.write_record(&row).map_err(to_io)?;
-        }
-        c.flush()
+        pair_rows(w, prep, l, "status", review.iter().map(|&i| (i, status(i))))
+    })?;
+    let audit = prep.config.link.audit_sample.map(|n| {
+        let conf: Vec<f64> = l.confidence.p.clone();
+        let s = crate::review::draw_audit(&l.links, &conf, l.cutoff, n, prep.config.assess.seed);
+        (n, s)
+    });
+    if let Some((_, s)) = &audit {
+        write_table(out, crate::review::AUDIT_FILE, parquet, |w| {
+            pair_rows(
+                w,
+                prep,
+                l,
+                "band",
+                s.pairs.iter().map(|&(i, h)| (i, h.to_string())),
+            )
+        })?;
+    }
+    // Every candidate pair of a record to review or audit: the page's "other candidates".
+    let mut shown: Vec<usize> = review.clone();
+    if let Some((_, s)) = &audit {
+        shown.extend(s.pairs.iter().map(|p| p.0));
+    }
+    let lset: std::collections::HashSet<u32> = shown.iter().map(|&i| prep.cands.left[i]).collect();
+    let rset: std::collections::HashSet<u32> = shown.iter().map(|&i| prep.cands.right[i]).collect();
+    write_table(out, crate::review::CONTEXT_FILE, parquet, |w| {
+        let context = (0..prep.cands.len())
+            .filter(|&i| lset.contains(&prep.cands.left[i]) || rset.contains(&prep.cands.right[i]));
+        pair_rows(w, prep, l, "status", context.map(|i| (i, status(i))))
     })?;
 
     let steps = next_steps(prep, &l.assessment, Some((l, &outcomes, review.len())));
@@ -1202,6 +1215,11 @@ fn emit_linkage(
     out.write("report.html", |w| w.write_all(page.as_bytes()))?;
     let extra = SummaryExtra {
         run_date: &run_date,
+        audit: audit.map(|(n, s)| AuditSummary {
+            sample: n,
+            seed: prep.config.assess.seed,
+            bands: s.bands,
+        }),
         outcomes: Some(&outcomes),
         next_steps: steps,
         stopped: false,
@@ -1247,6 +1265,7 @@ fn fill_stopped(
     out.write("report.html", |w| w.write_all(page.as_bytes()))?;
     let extra = SummaryExtra {
         run_date: &run_date,
+        audit: None,
         outcomes: None,
         next_steps: steps,
         stopped: true,
@@ -1260,6 +1279,85 @@ const STOPPED_STEP: &str = "No links were written: the verdict is infeasible and
 /// A confidence in the CSV files: six decimals, never on the wrong side of the cut-off.
 fn confidence_csv(p: f64, cut: f64) -> String {
     crate::numbers::confidence(p, cut, 6)
+}
+
+/// Writes `dovetail audit`'s audit.json into a run folder and puts the audit into its
+/// report.html (between [`html::AUDIT_MARK`] and [`html::AUDIT_END`]), both landing at once
+/// with the folder's record.
+pub fn write_audit(dir: &Path, a: &crate::review::AuditResult) -> Result<Vec<PathBuf>> {
+    let page_path = dir.join("report.html");
+    let page = std::fs::read_to_string(&page_path)
+        .map_err(|e| crate::Error::input(format!("cannot read it: {e}")).with_file(&page_path))?;
+    let page = match (page.find(html::AUDIT_MARK), page.find(html::AUDIT_END)) {
+        (Some(s), Some(e)) if s < e => format!(
+            "{}{}{}",
+            &page[..s + html::AUDIT_MARK.len()],
+            html::audit_section(a),
+            &page[e..]
+        ),
+        _ => {
+            return Err(crate::Error::input(
+                "this report.html has no place for an audit (written by an older version?); run `dovetail link` again",
+            )
+            .with_file(&page_path))
+        }
+    };
+    let stamp = crate::folder::Stamp {
+        command: "audit",
+        fingerprint: None,
+    };
+    let mut out = OutputSet::for_run(dir, stamp)?;
+    let json = serde_json::to_string_pretty(a).map_err(|e| crate::Error::output(e.to_string()))?;
+    out.write(crate::review::AUDIT_RESULT_FILE, |w| writeln!(w, "{json}"))?;
+    out.write("report.html", |w| w.write_all(page.as_bytes()))?;
+    out.commit()
+}
+
+/// Writes candidate pairs as review.csv does: ids, `third` (the pair's status or audit
+/// band), confidence, weight, the passes, then per field its level and both values.
+fn pair_rows(
+    w: &mut dyn Write,
+    prep: &Prepared,
+    l: &Linkage,
+    third: &str,
+    rows: impl Iterator<Item = (usize, String)>,
+) -> std::io::Result<()> {
+    let mut c = csv_writer(w);
+    let mut head: Vec<String> = [
+        "left_id",
+        "right_id",
+        third,
+        "confidence",
+        "weight",
+        "found_by",
+    ]
+    .iter()
+    .map(|s| s.to_string())
+    .collect();
+    for f in &prep.config.field {
+        head.push(format!("{}_level", f.name));
+        head.push(format!("{}_left", f.name));
+        head.push(format!("{}_right", f.name));
+    }
+    c.write_record(&head).map_err(to_io)?;
+    for (i, tag) in rows {
+        let (a, b) = (prep.cands.left[i] as usize, prep.cands.right[i] as usize);
+        let mut row = vec![
+            prep.records.left_ids[a].clone(),
+            prep.records.right_ids[b].clone(),
+            tag,
+            confidence_csv(l.confidence.p[i], l.cutoff),
+            num(prep.weight[i]),
+            found_by(prep, i),
+        ];
+        for (k, f) in prep.config.field.iter().enumerate() {
+            row.push(level_text(prep, i, k));
+            row.push(prep.left.value(f.left_column(), a));
+            row.push(prep.right.value(f.right_column(), b));
+        }
+        c.write_record(&row).map_err(to_io)?;
+    }
+    c.flush()
 }
 
 /// The pairs in the review band, most useful first: those whose confidence is closest to

@@ -24,6 +24,7 @@ fn links_sample_tables_one_to_one_with_pinned_outputs() {
             "outputs.json",
             "report.html",
             "review.csv",
+            "review_context.csv",
             "summary.json",
             "unlinked_left.csv",
             "unlinked_right.csv"
@@ -124,7 +125,7 @@ fn same_bytes_for_one_and_two_threads() {
             let mut v: serde_json::Value = serde_json::from_slice(&bytes).unwrap();
             let files = v["files"].as_array_mut().unwrap();
             files.retain(|f| f["name"] != "summary.json");
-            assert_eq!(files.len(), 5);
+            assert_eq!(files.len(), 6);
             return serde_json::to_vec(&v).unwrap();
         }
         if name != "summary.json" {
