@@ -603,3 +603,45 @@ fn decide(state: &State, req: &Request) -> Response {
         .count();
     json(200, &serde_json::json!({"saved": true, "decided": done}))
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn binds_the_loopback_address_only() {
+        let dir = tempfile::tempdir().unwrap();
+        std::fs::write(dir.path().join("summary.json"), r#"{"fields": []}"#).unwrap();
+        std::fs::write(dir.path().join("review.csv"), "left_id,right_id\nL1,R1\n").unwrap();
+        let opts = Options {
+            dir: dir.path().to_path_buf(),
+            audit: false,
+            reviewer: "t".into(),
+            port: 0,
+        };
+        let s = Server::bind(&opts, Box::new(std::io::sink())).unwrap();
+        let addr = s.local_addr().unwrap();
+        assert!(addr.ip().is_loopback(), "{addr}");
+        assert_eq!(addr.ip(), std::net::IpAddr::from(Ipv4Addr::LOCALHOST));
+        assert!(s
+            .url()
+            .starts_with(&format!("http://127.0.0.1:{}/?t=", addr.port())));
+        // The token: 32 hex digits, new for every server.
+        let t = s.url().rsplit("t=").next().unwrap().to_string();
+        assert!(t.len() == 32 && t.bytes().all(|b| b.is_ascii_hexdigit()));
+        let s2 = Server::bind(&opts, Box::new(std::io::sink())).unwrap();
+        assert_ne!(
+            s.url().rsplit("t=").next().unwrap(),
+            s2.url().rsplit("t=").next().unwrap()
+        );
+        assert_eq!(s.progress(), (1, 0));
+    }
+
+    #[test]
+    fn token_comparison_and_queries() {
+        assert!(same_token("abc", "abc"));
+        assert!(!same_token("abc", "abd") && !same_token("abc", "abcd"));
+        assert_eq!(query_value("a=1&t=xyz", "t"), Some("xyz"));
+        assert_eq!(query_value("tt=1", "t"), None);
+    }
+}

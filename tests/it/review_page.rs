@@ -789,3 +789,43 @@ fn scripted_clerk_audit_holds_the_true_precision_and_decisions_improve_the_links
     }
     eprintln!("F1 {f1_before:.5} -> {f1_after:.5}; true precision {true_precision:.4} in [{lo:.4}, {hi:.4}]");
 }
+
+#[test]
+fn two_tabs_posting_at_once_lose_nothing() {
+    let dir = tempfile::tempdir().unwrap();
+    let out = review_run(dir.path(), "");
+    let (_, rows) = read_csv(&out.join("review.csv"));
+    let pairs: Vec<(String, String)> = rows.iter().map(|r| (r[0].clone(), r[1].clone())).collect();
+    let s = serve(&out, &dir.path().join("log"), &[]);
+    let (port, token) = (s.port, s.token.clone());
+    // Two "tabs" post every pair's decision 5 times each, interleaved.
+    let tabs: Vec<_> = ["same", "different"]
+        .into_iter()
+        .map(|word| {
+            let (pairs, token) = (pairs.clone(), token.clone());
+            std::thread::spawn(move || {
+                for _ in 0..5 {
+                    for (l, r) in &pairs {
+                        let body = serde_json::json!({"left_id": l, "right_id": r, "decision": word});
+                        let (status, _) = http(
+                            port,
+                            &format!("POST /api/decide HTTP/1.1\r\nHost: 127.0.0.1:{port}\r\nX-Dovetail-Token: {token}\r\nContent-Type: application/json"),
+                            &body.to_string(),
+                        );
+                        assert_eq!(status, 200);
+                    }
+                }
+            })
+        })
+        .collect();
+    for t in tabs {
+        t.join().unwrap();
+    }
+    let lines = read_decisions(&out.join("decisions.csv")).unwrap();
+    assert_eq!(
+        lines.len(),
+        2 * 5 * pairs.len(),
+        "every post is one whole line"
+    );
+    assert_eq!(in_force(&lines).len(), pairs.len());
+}
