@@ -49,6 +49,7 @@ __all__ = [
     "tune",
     "match",
     "synth",
+    "audit",
     "Linkage",
     "Assessment",
     "Tuning",
@@ -455,3 +456,13 @@ def synth(
         list(blank or []),
     )
     return Synthetic(native, config_json)
+
+
+def audit(folder: Union[str, "os.PathLike[str]"]) -> Dict[str, Any]:
+    """The precision of a finished run's links measured from the clerks' decisions on its
+    audit sample, as ``dovetail audit``: the run needs ``audit_sample`` under ``[link]``, and
+    ``decisions.csv`` in the folder (from ``dovetail review FOLDER --audit``). Returns
+    audit.json as a dict (``measured`` holds the precision and its 95% interval,
+    ``estimate_inside`` whether the run's own estimate lies in it) and adds the audit to the
+    folder's report.html."""
+    return json.loads(_dovetail.audit(os.fspath(folder)))

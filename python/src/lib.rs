@@ -494,6 +494,20 @@ fn write_plain(py: Python<'_>, outputs: &Outputs, folder: PathBuf) -> PyResult<V
     .map_err(errors::to_py)
 }
 
+/// Measures a finished run folder's precision from the decisions on its audit sample, as
+/// `dovetail audit`: writes audit.json and the report's audit section; returns audit.json's
+/// text.
+#[pyfunction]
+fn audit(py: Python<'_>, folder: PathBuf) -> PyResult<String> {
+    py.detach(|| -> Result<String> {
+        let _claim = dovetail::folder::claim(&folder)?;
+        let result = dovetail::review::audit_folder(&folder)?;
+        dovetail::report::write_audit(&folder, &result)?;
+        serde_json::to_string(&result).map_err(|e| dovetail::Error::output(e.to_string()))
+    })
+    .map_err(errors::to_py)
+}
+
 #[pymodule]
 fn _dovetail(m: &Bound<'_, PyModule>) -> PyResult<()> {
     errors::register(m)?;
@@ -503,6 +517,7 @@ fn _dovetail(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(match_pairs, m)?)?;
     m.add_function(wrap_pyfunction!(synth, m)?)?;
     m.add_function(wrap_pyfunction!(write_plain, m)?)?;
+    m.add_function(wrap_pyfunction!(audit, m)?)?;
     m.add("__version__", env!("CARGO_PKG_VERSION"))?;
     Ok(())
 }

@@ -1189,17 +1189,21 @@ fn emit_linkage(
             )
         })?;
     }
-    // Every candidate pair of a record to review or audit: the page's "other candidates".
+    // The page's "other candidates": for each record of a pair to review or audit, its
+    // likeliest candidate pairs.
     let mut shown: Vec<usize> = review.clone();
     if let Some((_, s)) = &audit {
         shown.extend(s.pairs.iter().map(|p| p.0));
     }
-    let lset: std::collections::HashSet<u32> = shown.iter().map(|&i| prep.cands.left[i]).collect();
-    let rset: std::collections::HashSet<u32> = shown.iter().map(|&i| prep.cands.right[i]).collect();
+    let context = context_pairs(prep, l, &shown);
     write_table(out, crate::review::CONTEXT_FILE, parquet, |w| {
-        let context = (0..prep.cands.len())
-            .filter(|&i| lset.contains(&prep.cands.left[i]) || rset.contains(&prep.cands.right[i]));
-        pair_rows(w, prep, l, "status", context.map(|i| (i, status(i))))
+        pair_rows(
+            w,
+            prep,
+            l,
+            "status",
+            context.iter().map(|&i| (i, status(i))),
+        )
     })?;
 
     let steps = next_steps(prep, &l.assessment, Some((l, &outcomes, review.len())));
@@ -1311,6 +1315,45 @@ pub fn write_audit(dir: &Path, a: &crate::review::AuditResult) -> Result<Vec<Pat
     out.write(crate::review::AUDIT_RESULT_FILE, |w| writeln!(w, "{json}"))?;
     out.write("report.html", |w| w.write_all(page.as_bytes()))?;
     out.commit()
+}
+
+/// Candidate pairs kept per record in review_context.csv (loose blocking gives a record
+/// hundreds; a clerk looks at the first few).
+const CONTEXT_PER_RECORD: usize = 6;
+
+/// For every record of the pairs `shown`, its [`CONTEXT_PER_RECORD`] likeliest candidate
+/// pairs (by confidence, then weight, then input order), ascending.
+fn context_pairs(prep: &Prepared, l: &Linkage, shown: &[usize]) -> Vec<usize> {
+    use std::collections::HashMap;
+    let mut by_left: HashMap<u32, Vec<usize>> = shown
+        .iter()
+        .map(|&i| (prep.cands.left[i], Vec::new()))
+        .collect();
+    let mut by_right: HashMap<u32, Vec<usize>> = shown
+        .iter()
+        .map(|&i| (prep.cands.right[i], Vec::new()))
+        .collect();
+    for i in 0..prep.cands.len() {
+        if let Some(v) = by_left.get_mut(&prep.cands.left[i]) {
+            v.push(i);
+        }
+        if let Some(v) = by_right.get_mut(&prep.cands.right[i]) {
+            v.push(i);
+        }
+    }
+    let mut out: Vec<usize> = Vec::new();
+    for v in by_left.values_mut().chain(by_right.values_mut()) {
+        v.sort_by(|&x, &y| {
+            l.confidence.p[y]
+                .total_cmp(&l.confidence.p[x])
+                .then_with(|| prep.weight[y].total_cmp(&prep.weight[x]))
+                .then(x.cmp(&y))
+        });
+        out.extend(v.iter().take(CONTEXT_PER_RECORD));
+    }
+    out.sort_unstable();
+    out.dedup();
+    out
 }
 
 /// Writes candidate pairs as review.csv does: ids, `third` (the pair's status or audit
