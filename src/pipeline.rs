@@ -668,10 +668,12 @@ pub fn duplicate_share(prep: &Prepared) -> Option<f64> {
 /// capped so that sample x right records stays below [`COMPLETENESS_PAIRS`].
 const COMPLETENESS_SAMPLE: usize = 2000;
 
-/// Most pairs compared for the run's completeness: about 1.5 s on 2 cores at 20,000 x 20,000
-/// (100 left records sampled, an interval of about +-0.07). Its cost does not grow with the
-/// tables, but its sample shrinks as the right table grows.
-const COMPLETENESS_PAIRS: usize = 2_000_000;
+/// Most pairs compared for the run's completeness: 500 left records at 20,000 x 20,000
+/// (0.8 s on 2 cores, an interval of about +-0.03, the honesty matrix's tolerance; 2M pairs
+/// gave 100 records and +-0.07), 50 at 200,000 (0.3 s). Its cost does not grow with the
+/// tables, but its sample shrinks as the right table grows. The reference is built one
+/// sampled record at a time, so its memory is a row of weights per thread.
+const COMPLETENESS_PAIRS: usize = 10_000_000;
 
 /// The forecast's bootstrap subsamples above this many candidate pairs. A replicate draws only
 /// the false pairs whose weight can be positive, so its cost follows those, not the pairs:

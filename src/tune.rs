@@ -115,6 +115,11 @@ fn run_claims(prep: &Prepared) -> Vec<f64> {
 /// is compared once with each distinct value the right table holds, and each right record
 /// reads its levels from that table: the same levels, weights and level counts as comparing
 /// every pair, at the cost of the distinct values instead of the right records.
+/// How far below a sampled record's log sum of likelihood ratios a right record's weight may
+/// be and still give a share above 1e-9 (e^-21 < 1e-9, and the chance of any partner is at
+/// most 1).
+const PARTNER_SPAN: f64 = 21.0;
+
 fn reference_with(
     prep: &Prepared,
     opts: &TuneOptions,
@@ -180,11 +185,24 @@ fn reference_with(
         .map(|(m, u)| m.iter().zip(u).map(|(a, b)| (a / b).ln()).collect())
         .collect();
     let frequency = &prep.frequency;
-    let mut weight: Vec<Vec<f64>> = sampled
+    // One-to-one from the right side too: a right record is free for a sampled record only
+    // when no other left record has it, and the run's confidences say how likely that is.
+    // Without it, a record whose partner is missing takes a relative's right record (same
+    // surname, address and phone) for its own even when that relative's own record holds it.
+    let mut claim = vec![0.0f64; nr];
+    for (&b, &p) in prep.cands.right.iter().zip(claims) {
+        claim[b as usize] += p;
+    }
+    let free = |q: f64| (1.0 - q).max(1e-12).ln();
+    let free_of_all: Vec<f64> = claim.iter().map(|&q| free(q)).collect();
+    // Per sampled record, one row of weights against every right record at a time (memory
+    // per thread, not per sample): the log of its likelihood ratios' sum, and the right
+    // records within [`PARTNER_SPAN`] of it, the only ones that can get a share above 1e-9.
+    let rows: Vec<(f64, Vec<(u32, f64)>)> = sampled
         .par_iter()
         .zip(&levels)
         .map(|(&a, lv)| {
-            (0..nr)
+            let mut w: Vec<f64> = (0..nr)
                 .map(|b| {
                     // The pattern's weight in field order, then the value-frequency terms, as
                     // the run weighs its pairs.
@@ -208,50 +226,37 @@ fn reference_with(
                     }
                     w
                 })
-                .collect()
+                .collect();
+            for (x, f) in w.iter_mut().zip(&free_of_all) {
+                *x += f;
+            }
+            let lo = prep.cands.left.partition_point(|&x| x < a);
+            let hi = prep.cands.left.partition_point(|&x| x <= a);
+            for (&b, &c) in prep.cands.right[lo..hi].iter().zip(&claims[lo..hi]) {
+                let b = b as usize;
+                w[b] += free(claim[b] - c) - free_of_all[b];
+            }
+            let top = w.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+            let log_sum = top + w.iter().map(|x| (x - top).exp()).sum::<f64>().ln();
+            let near = w
+                .iter()
+                .enumerate()
+                .filter(|&(_, &x)| x - log_sum > -PARTNER_SPAN)
+                .map(|(b, &x)| (b as u32, x))
+                .collect();
+            (log_sum, near)
         })
         .collect();
-    // One-to-one from the right side too: a right record is free for a sampled record only
-    // when no other left record has it, and the run's confidences say how likely that is.
-    // Without it, a record whose partner is missing takes a relative's right record (same
-    // surname, address and phone) for its own even when that relative's own record holds it.
-    let mut claim = vec![0.0f64; nr];
-    for (&b, &p) in prep.cands.right.iter().zip(claims) {
-        claim[b as usize] += p;
-    }
-    let free = |q: f64| (1.0 - q).max(1e-12).ln();
-    let free_of_all: Vec<f64> = claim.iter().map(|&q| free(q)).collect();
-    for (k, &a) in sampled.iter().enumerate() {
-        let w = &mut weight[k];
-        for (x, f) in w.iter_mut().zip(&free_of_all) {
-            *x += f;
-        }
-        let lo = prep.cands.left.partition_point(|&x| x < a);
-        let hi = prep.cands.left.partition_point(|&x| x <= a);
-        for (&b, &c) in prep.cands.right[lo..hi].iter().zip(&claims[lo..hi]) {
-            let b = b as usize;
-            w[b] += free(claim[b] - c) - free_of_all[b];
-        }
-    }
-    // Per sampled record: the log of its likelihood ratios' sum over all right records.
-    let log_sum: Vec<f64> = weight
-        .iter()
-        .map(|w| {
-            let hi = w.iter().copied().fold(f64::NEG_INFINITY, f64::max);
-            hi + w.iter().map(|x| (x - hi).exp()).sum::<f64>().ln()
-        })
-        .collect();
+    let log_sum: Vec<f64> = rows.iter().map(|r| r.0).collect();
     let has_partner = partner_share(&log_sum, nr);
     let offset = (has_partner / (1.0 - has_partner)).ln() - (nr as f64).ln();
-    let partners = weight
+    let partners = rows
         .iter()
-        .enumerate()
-        .map(|(k, w)| {
+        .map(|(ls, near)| {
             // The record's chance of having a partner at all, then each right record's share.
-            let any = 1.0 / (1.0 + (-(log_sum[k] + offset)).exp());
-            w.iter()
-                .enumerate()
-                .map(|(b, x)| (b as u32, any * (x - log_sum[k]).exp()))
+            let any = 1.0 / (1.0 + (-(ls + offset)).exp());
+            near.iter()
+                .map(|&(b, x)| (b, any * (x - ls).exp()))
                 .filter(|&(_, p)| p > 1e-9)
                 .collect()
         })
