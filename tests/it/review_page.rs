@@ -342,6 +342,12 @@ fn refuses_requests_without_the_token_from_elsewhere_or_cross_origin() {
         "a wrong token"
     );
     assert_eq!(get(&format!("/?t={}", s.token), ""), 200);
+    // Self-contained: nothing on the page names another address or loads a file.
+    let (_, page) = http(p, &format!("GET /?t={} HTTP/1.1\r\n{host}", s.token), "");
+    for bad in ["http:", "https:", "src=", "<link", "@import", "url("] {
+        assert!(!page.contains(bad), "the page holds {bad}");
+    }
+    assert!(page.contains("same person") && page.contains("<script nonce="));
     assert_eq!(get("/api/run", ""), 403, "the API without the token header");
     let tok = format!("\r\nX-Dovetail-Token: {}", s.token);
     assert_eq!(get("/api/run", &tok), 200);
