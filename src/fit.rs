@@ -45,8 +45,6 @@ pub struct Fitted {
     pub weight: Vec<f64>,
     /// Per pair: weight plus the prior log odds of a link.
     pub theta: Vec<f64>,
-    /// Per pair: its pattern's index in the pattern counts.
-    pub patterns: PairPatterns,
 }
 
 /// What the fit reads.
@@ -58,10 +56,12 @@ pub struct Input<'a> {
     pub records: &'a Records,
     /// The candidate pairs.
     pub cands: &'a Candidates,
-    /// Their agreement patterns.
+    /// Their comparators (the pairs' codes may be gone: `patterns` holds each pair's).
     pub comparison: &'a Comparison,
     /// The pattern counts.
     pub counts: &'a PatternCounts,
+    /// Each pair's pattern, indexed into `counts`.
+    pub patterns: &'a PairPatterns,
     /// Pairs a clerk decided are the same person, as (left, right) record indices: labelled
     /// true pairs, like `[model] labelled`.
     pub decided_same: &'a [(u32, u32)],
@@ -82,10 +82,10 @@ pub fn fit(
         cands,
         comparison,
         counts,
+        patterns: pp,
         decided_same,
     } = *input;
     let known = known_laws(config, records, comparison, counts, decided_same)?;
-    let pp = PairPatterns::new(comparison, counts);
     let fit = if cands.is_empty() {
         model::null_fit(&counts.levels)
     } else {
@@ -116,7 +116,7 @@ pub fn fit(
     // The fit and its one-to-one refinement use field-level weights; value-frequency tables
     // are then estimated from the refined link probabilities of the candidate pairs.
     let no_frequency: Vec<Option<ValueFrequency>> = vec![None; records.fields.len()];
-    let (_, mut theta) = pair_weights_indexed(records, cands, &pp, &fit, None, &no_frequency, None);
+    let (_, mut theta) = pair_weights_indexed(records, cands, pp, &fit, None, &no_frequency, None);
     let mut strata = Some(Strata::new(&cands.passes))
         .filter(|s| config.model.per_pass && s.masks.len() > 1 && !known.any_fixed());
     let plain_fit = fit.clone();
@@ -149,25 +149,28 @@ pub fn fit(
                     ),
                 ));
             }
+            // Only the last round's link probabilities are kept (8 bytes a pair less at the
+            // fit's peak).
+            drop(std::mem::take(&mut link_prob));
             let marg =
                 confidence::marginals(records.n_left(), &cands.left, &cands.right, &theta, &rough);
-            gamma = pattern_shares(&pp, counts, &marg.p);
+            gamma = pattern_shares(pp, counts, &marg.p);
             let stratified = round >= ONE_TO_ONE_ROUNDS;
             // m by leave-one-field-out from the link probabilities of this round (see
             // model::leave_one_out_m), u, p and the missing shares by the M-step.
-            let pooled_m = model::leave_one_out_m(&pp, &[&fit], |_| 0, &marg.p);
+            let pooled_m = model::leave_one_out_m(pp, &[&fit], |_| 0, &marg.p);
             let strata_m = strata
                 .as_ref()
                 .filter(|s| stratified && !s.fits.is_empty())
                 .map(|s| {
                     let fits: Vec<&Fit> = s.fits.iter().collect();
-                    model::leave_one_out_m(&pp, &fits, |i| s.stratum_of(i), &marg.p)
+                    model::leave_one_out_m(pp, &fits, |i| s.stratum_of(i), &marg.p)
                 });
             fit = model::fit_from_shares(counts, &gamma, &fit, &known);
             fit.m = pooled_m.into_iter().next().unwrap_or_default();
             known.apply_m(&mut fit.m);
             if let (Some(s), true) = (strata.as_mut(), stratified) {
-                s.refit(&pp, &marg.p, &fit);
+                s.refit(pp, &marg.p, &fit);
                 if let Some(ms) = strata_m {
                     for (f, m) in s.fits.iter_mut().zip(ms) {
                         f.m = m;
@@ -191,15 +194,16 @@ pub fn fit(
                 link_log_odds = fits.iter().map(|f| f.prior_log_odds() + shift).collect();
             }
             prior.step(&mut link_log_odds, &marg.p, &rough);
-            (_, theta) = pair_weights_indexed(
+            let wg = Weigher::new(
                 records,
                 cands,
-                &pp,
+                pp,
                 &fit,
                 st,
                 &no_frequency,
                 Some(&link_log_odds),
             );
+            pair_thetas_into(&mut theta, &wg);
             link_prob = marg.p;
         }
         if link_log_odds.len() == 1 {
@@ -237,10 +241,11 @@ pub fn fit(
             })
         })
         .collect();
+    drop(std::mem::take(&mut theta));
     let (weight, theta) = pair_weights_indexed(
         records,
         cands,
-        &pp,
+        pp,
         &fit,
         strata.as_ref(),
         &frequency,
@@ -256,7 +261,6 @@ pub fn fit(
         frequency,
         weight,
         theta,
-        patterns: pp,
     })
 }
 
@@ -410,6 +414,8 @@ fn pattern_shares(pp: &PairPatterns, counts: &PatternCounts, p: &[f64]) -> Vec<f
 /// theta = weight + the prior log odds, from the pair's stratum fit when `strata` is given. The
 /// prior log odds are `link_log_odds` (one per stratum, or one pooled value; see
 /// [`confidence::LinkPrior::step`]) when given, else ln(p / (1 - p)) of the fit.
+/// `comparison` must still hold its codes (a run's `Prepared` has freed them: use
+/// [`pair_weights_indexed`] with its `patterns`).
 pub fn pair_weights(
     records: &Records,
     cands: &Candidates,
@@ -423,6 +429,92 @@ pub fn pair_weights(
     pair_weights_indexed(records, cands, &pp, fit, strata, frequency, link_log_odds)
 }
 
+/// The weight and theta of any pair, from tables built once.
+struct Weigher<'a> {
+    records: &'a Records,
+    cands: &'a Candidates,
+    pp: &'a PairPatterns,
+    strata: Option<&'a Strata>,
+    frequency: &'a [Option<ValueFrequency>],
+    /// The weight of every (stratum, pattern).
+    table: Vec<f64>,
+    /// Prior log odds per stratum.
+    prior: Vec<f64>,
+    /// The fields with value-frequency tables.
+    adjusted: Vec<usize>,
+}
+
+impl<'a> Weigher<'a> {
+    fn new(
+        records: &'a Records,
+        cands: &'a Candidates,
+        pp: &'a PairPatterns,
+        fit: &Fit,
+        strata: Option<&'a Strata>,
+        frequency: &'a [Option<ValueFrequency>],
+        link_log_odds: Option<&[f64]>,
+    ) -> Weigher<'a> {
+        let fits: Vec<&Fit> = match strata {
+            Some(s) => s.fits.iter().collect(),
+            None => vec![fit],
+        };
+        let table: Vec<f64> = fits
+            .iter()
+            .flat_map(|f| pp.patterns.iter().map(|pat| f.pattern_weight(pat)))
+            .collect();
+        let prior: Vec<f64> = match link_log_odds {
+            Some(l) => l.to_vec(),
+            None => fits
+                .iter()
+                .map(|f| {
+                    if f.p > 0.0 && f.p < 1.0 {
+                        f.prior_log_odds()
+                    } else {
+                        0.0
+                    }
+                })
+                .collect(),
+        };
+        let adjusted: Vec<usize> = (0..frequency.len())
+            .filter(|&k| frequency[k].is_some())
+            .collect();
+        Weigher {
+            records,
+            cands,
+            pp,
+            strata,
+            frequency,
+            table,
+            prior,
+            adjusted,
+        }
+    }
+
+    fn stratum(&self, i: usize) -> usize {
+        self.strata.map_or(0, |s| s.stratum_of(i))
+    }
+
+    fn weight(&self, i: usize) -> f64 {
+        let j = self.pp.of_pair[i] as usize;
+        let mut w = self.table[self.stratum(i) * self.pp.patterns.len() + j];
+        for &k in &self.adjusted {
+            if let Some(vf) = &self.frequency[k] {
+                if self.pp.patterns[j][k] == 0 {
+                    let v = self.records.fields[k].left[self.cands.left[i] as usize];
+                    if v != MISSING {
+                        w += vf.adjustment[v as usize];
+                    }
+                }
+            }
+        }
+        w
+    }
+
+    fn theta(&self, i: usize, weight: f64) -> f64 {
+        weight + self.prior[self.stratum(i)]
+    }
+}
+
 /// [`pair_weights`] of pairs whose patterns are indexed already.
 pub fn pair_weights_indexed(
     records: &Records,
@@ -434,55 +526,26 @@ pub fn pair_weights_indexed(
     link_log_odds: Option<&[f64]>,
 ) -> (Vec<f64>, Vec<f64>) {
     use rayon::prelude::*;
-    let fits: Vec<&Fit> = match strata {
-        Some(s) => s.fits.iter().collect(),
-        None => vec![fit],
-    };
-    let stratum = |i: usize| strata.map_or(0, |s| s.stratum_of(i));
-    // The weight of every (stratum, pattern).
-    let np = pp.patterns.len();
-    let table: Vec<f64> = fits
-        .iter()
-        .flat_map(|f| pp.patterns.iter().map(|pat| f.pattern_weight(pat)))
-        .collect();
-    let prior: Vec<f64> = match link_log_odds {
-        Some(l) => l.to_vec(),
-        None => fits
-            .iter()
-            .map(|f| {
-                if f.p > 0.0 && f.p < 1.0 {
-                    f.prior_log_odds()
-                } else {
-                    0.0
-                }
-            })
-            .collect(),
-    };
-    let adjusted: Vec<usize> = (0..frequency.len())
-        .filter(|&k| frequency[k].is_some())
-        .collect();
+    let wg = Weigher::new(records, cands, pp, fit, strata, frequency, link_log_odds);
     let weight: Vec<f64> = (0..cands.len())
         .into_par_iter()
-        .map(|i| {
-            let j = pp.of_pair[i] as usize;
-            let mut w = table[stratum(i) * np + j];
-            for &k in &adjusted {
-                if let Some(vf) = &frequency[k] {
-                    if pp.patterns[j][k] == 0 {
-                        let v = records.fields[k].left[cands.left[i] as usize];
-                        if v != MISSING {
-                            w += vf.adjustment[v as usize];
-                        }
-                    }
-                }
-            }
-            w
-        })
+        .map(|i| wg.weight(i))
         .collect();
     let theta: Vec<f64> = weight
         .par_iter()
         .enumerate()
-        .map(|(i, &w)| w + prior[stratum(i)])
+        .map(|(i, &w)| wg.theta(i, w))
         .collect();
     (weight, theta)
+}
+
+/// The thetas of [`pair_weights_indexed`] written into `theta`, without the weights (the
+/// fit's rounds need only theta, and a second and third vector per pair at its peak cost a
+/// gigabyte at a million records loosely blocked).
+fn pair_thetas_into(theta: &mut [f64], wg: &Weigher<'_>) {
+    use rayon::prelude::*;
+    theta
+        .par_iter_mut()
+        .enumerate()
+        .for_each(|(i, t)| *t = wg.theta(i, wg.weight(i)));
 }

@@ -157,7 +157,8 @@ pub struct Prepared {
     pub pass_stats: Vec<PassStats>,
     /// Candidate pairs.
     pub cands: Candidates,
-    /// Pattern code per pair.
+    /// The comparators. Its per-pair codes are freed once `patterns` indexes them (8 bytes
+    /// a pair at the fit's peak): read a pair's levels through `patterns`.
     pub comparison: Comparison,
     /// Pattern counts.
     pub counts: PatternCounts,
@@ -538,8 +539,12 @@ pub fn prepare_given(
     clock.lap("blocking", &mut timings);
 
     begin(progress, "comparing")?;
-    let comparison = compare::compare(&records, &cands);
+    let mut comparison = compare::compare(&records, &cands);
     let counts = comparison.pattern_counts();
+    let patterns = PairPatterns::new(&comparison, &counts);
+    // Every later stage reads a pair's levels through its pattern; the codes (8 bytes a pair)
+    // go before the fit, whose peak is the run's.
+    comparison.codes = Vec::new();
     let agreement = codings::agreement(&records, &counts);
     warnings.extend(codings::warnings(&records, &agreement));
     clock.lap("comparing", &mut timings);
@@ -555,7 +560,6 @@ pub fn prepare_given(
         frequency,
         weight,
         theta,
-        patterns,
     } = fit::fit(
         &fit::Input {
             config: &config,
@@ -563,6 +567,7 @@ pub fn prepare_given(
             cands: &cands,
             comparison: &comparison,
             counts: &counts,
+            patterns: &patterns,
             decided_same: decisions.as_ref().map_or(&[][..], |d| &d.same_records[..]),
         },
         &mut warnings,
@@ -1103,7 +1108,7 @@ impl Prepared {
 /// The level of field `k` for pair `i`, as written in outputs: the level number, or
 /// "missing".
 pub fn level_text(prep: &Prepared, i: usize, k: usize) -> String {
-    match prep.comparison.level(prep.comparison.codes[i], k) {
+    match prep.patterns.patterns[prep.patterns.of_pair[i] as usize][k] {
         MISSING_LEVEL => "missing".to_string(),
         l => l.to_string(),
     }

@@ -213,7 +213,7 @@ fn fitted_laws_and_middle_confidences_match_the_truth() {
             for i in (0..p.cands.len()).filter(|&i| strata.stratum_of(i) == g) {
                 let class = r.truth.contains(&r.pair_ids(i)) as usize;
                 for (k, c) in counts[class].iter_mut().enumerate() {
-                    let l = p.comparison.level(p.comparison.codes[i], k) as usize;
+                    let l = p.patterns.patterns[p.patterns.of_pair[i] as usize][k] as usize;
                     if l < fit.m[k].len() {
                         c[l] += 1.0;
                     }

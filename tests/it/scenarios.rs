@@ -417,7 +417,9 @@ pub fn use_truth_laws(prep: &mut Prepared, truth: &HashSet<(u32, u32)>) {
     let shares_of = |pairs: &[usize]| -> (dovetail::compare::PatternCounts, Vec<f64>) {
         let mut sums: std::collections::BTreeMap<u64, (f64, f64)> = Default::default();
         for &i in pairs {
-            let e = sums.entry(prep.comparison.codes[i]).or_default();
+            let e = sums
+                .entry(prep.patterns.codes[prep.patterns.of_pair[i] as usize])
+                .or_default();
             e.0 += 1.0;
             e.1 += is_true[i];
         }
@@ -460,10 +462,10 @@ pub fn use_truth_laws(prep: &mut Prepared, truth: &HashSet<(u32, u32)>) {
     let no_frequency = vec![None; prep.records.fields.len()];
     let rough = dovetail::fit::REFINEMENT_BP;
     for _ in 0..6 {
-        let (_, theta) = dovetail::fit::pair_weights(
+        let (_, theta) = dovetail::fit::pair_weights_indexed(
             &prep.records,
             &prep.cands,
-            &prep.comparison,
+            &prep.patterns,
             &pooled,
             prep.strata.as_ref(),
             &no_frequency,
@@ -486,10 +488,10 @@ pub fn use_truth_laws(prep: &mut Prepared, truth: &HashSet<(u32, u32)>) {
             &rough,
         );
     }
-    let (w, t) = dovetail::fit::pair_weights(
+    let (w, t) = dovetail::fit::pair_weights_indexed(
         &prep.records,
         &prep.cands,
-        &prep.comparison,
+        &prep.patterns,
         &pooled,
         prep.strata.as_ref(),
         &no_frequency,
