@@ -1174,8 +1174,13 @@ fn emit_linkage(
         pair_rows(w, prep, l, "status", review.iter().map(|&i| (i, status(i))))
     })?;
     let audit = prep.config.link.audit_sample.map(|n| {
-        let conf: Vec<f64> = l.confidence.p.clone();
-        let s = crate::review::draw_audit(&l.links, &conf, l.cutoff, n, prep.config.assess.seed);
+        let s = crate::review::draw_audit(
+            &l.links,
+            &l.confidence.p,
+            l.cutoff,
+            n,
+            prep.config.assess.seed,
+        );
         (n, s)
     });
     if let Some((_, s)) = &audit {

@@ -206,15 +206,10 @@ impl Server {
         } else {
             Vec::new()
         };
-        let mut in_force = HashMap::new();
-        for d in &earlier {
-            let key = (d.left_id.clone(), d.right_id.clone());
-            if d.decision == Decision::Withdrawn {
-                in_force.remove(&key);
-            } else {
-                in_force.insert(key, d.decision);
-            }
-        }
+        let in_force: HashMap<(String, String), Decision> = super::in_force(&earlier)
+            .into_iter()
+            .map(|d| ((d.left_id.clone(), d.right_id.clone()), d.decision))
+            .collect();
         let file = std::fs::OpenOptions::new()
             .create(true)
             .append(true)
