@@ -155,6 +155,31 @@ pub fn budget_from_limits(limits: &[Limit]) -> Option<MemoryBudget> {
     })
 }
 
+/// With `DOVETAIL_TRACE_MEMORY` set, prints `memory: LABEL rss N MiB, peak N MiB` (VmRSS
+/// and VmHWM of /proc/self/status) to stderr: a developer's probe for where a run's peak
+/// falls (DEVELOPERS.md, benchmarks). Does nothing otherwise, or off Linux.
+pub fn trace_memory(label: &str) {
+    static ON: std::sync::OnceLock<bool> = std::sync::OnceLock::new();
+    if !*ON.get_or_init(|| std::env::var_os("DOVETAIL_TRACE_MEMORY").is_some()) {
+        return;
+    }
+    let Ok(status) = std::fs::read_to_string("/proc/self/status") else {
+        return;
+    };
+    let kb = |key: &str| -> u64 {
+        status
+            .lines()
+            .find(|l| l.starts_with(key))
+            .and_then(|l| l.split_whitespace().nth(1)?.parse().ok())
+            .unwrap_or(0)
+    };
+    eprintln!(
+        "memory: {label} rss {} MiB, peak {} MiB",
+        kb("VmRSS:") / 1024,
+        kb("VmHWM:") / 1024
+    );
+}
+
 /// Bytes for messages: decimal MB or GB, as [`crate::pipeline::human_bytes`], and plain bytes
 /// or kB below a megabyte.
 pub fn size_text(b: u64) -> String {

@@ -178,8 +178,8 @@ mod tests {
 
     fn records(fv: FieldValues) -> Records {
         Records {
-            left_ids: Vec::new(),
-            right_ids: Vec::new(),
+            left_ids: crate::texts::Texts::new(),
+            right_ids: crate::texts::Texts::new(),
             fields: vec![fv],
             key_columns: Vec::new(),
         }

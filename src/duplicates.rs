@@ -30,6 +30,7 @@ use crate::error::Result;
 use crate::pipeline::{self, Prepared};
 use crate::records::{FieldValues, Records};
 use crate::rng::Rng;
+use crate::texts::Texts;
 use rayon::prelude::*;
 
 /// Expected duplicate pairs in each table.
@@ -126,8 +127,8 @@ fn within(prep: &Prepared, left_side: bool) -> Result<Within> {
     };
     let windowed = passes.iter().any(|p| p.window.is_some());
     let recs = Records {
-        left_ids: vec![String::new(); sample.len()],
-        right_ids: vec![String::new(); n],
+        left_ids: Texts::blank(sample.len()),
+        right_ids: Texts::blank(n),
         fields: copy(&prep.records.fields, KeySource::Field),
         key_columns: copy(&prep.records.key_columns, KeySource::Column),
     };
@@ -142,7 +143,7 @@ fn within(prep: &Prepared, left_side: bool) -> Result<Within> {
     let (mut cands, _) = block::candidates(&recs, &key_passes);
     if windowed {
         let mut whole = recs;
-        whole.left_ids = vec![String::new(); n];
+        whole.left_ids = Texts::blank(n);
         for copied in whole.fields.iter_mut().chain(whole.key_columns.iter_mut()) {
             copied.left = copied.right.clone();
         }

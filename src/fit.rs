@@ -136,9 +136,10 @@ pub fn fit(
         // plain EM's, a stratum holding few false pairs can take true pairs' leftover mass
         // for its false law and never recover).
         let rounds = ONE_TO_ONE_ROUNDS + if strata.is_some() { STRATA_ROUNDS } else { 0 };
-        let pooled_group = vec![0u32; cands.len()];
+        crate::budget::trace_memory("fit: before the prior's graph");
         let mut prior =
-            confidence::LinkPrior::new(records.n_left(), &cands.left, &cands.right, &pooled_group);
+            confidence::LinkPrior::new(records.n_left(), &cands.left, &cands.right, |_| 0);
+        crate::budget::trace_memory("fit: the prior's graph");
         for round in 0..rounds {
             if cancelled() {
                 return Err(Error::new(
@@ -152,8 +153,10 @@ pub fn fit(
             // Only the last round's link probabilities are kept (8 bytes a pair less at the
             // fit's peak).
             drop(std::mem::take(&mut link_prob));
+            crate::budget::trace_memory("fit: round start");
             let marg =
                 confidence::marginals(records.n_left(), &cands.left, &cands.right, &theta, &rough);
+            crate::budget::trace_memory("fit: rough marginals");
             gamma = pattern_shares(pp, counts, &marg.p);
             let stratified = round >= ONE_TO_ONE_ROUNDS;
             // m by leave-one-field-out from the link probabilities of this round (see
@@ -178,13 +181,13 @@ pub fn fit(
                 }
             }
             let st = strata.as_ref().filter(|_| stratified);
-            let (group, fits): (&[u32], Vec<&Fit>) = match st {
-                Some(s) => (&s.of_pair, s.fits.iter().collect()),
-                None => (&pooled_group, vec![&fit]),
+            let (group, fits): (Option<&[u16]>, Vec<&Fit>) = match st {
+                Some(s) => (Some(&s.of_pair), s.fits.iter().collect()),
+                None => (None, vec![&fit]),
             };
             if link_log_odds.len() != fits.len() {
                 if !link_log_odds.is_empty() {
-                    prior.regroup(group);
+                    prior.regroup(|i| group.map_or(0, |g| g[i] as u32));
                 }
                 // The pooled rounds' prior, kept when the strata take over.
                 pooled_link_log_odds = link_log_odds.first().copied();
@@ -194,6 +197,7 @@ pub fn fit(
                 link_log_odds = fits.iter().map(|f| f.prior_log_odds() + shift).collect();
             }
             prior.step(&mut link_log_odds, &marg.p, &rough);
+            crate::budget::trace_memory("fit: link prior");
             let wg = Weigher::new(
                 records,
                 cands,
@@ -204,6 +208,7 @@ pub fn fit(
                 Some(&link_log_odds),
             );
             pair_thetas_into(&mut theta, &wg);
+            crate::budget::trace_memory("fit: weights");
             link_prob = marg.p;
         }
         if link_log_odds.len() == 1 {
@@ -330,13 +335,13 @@ fn known_laws(
             .left_ids
             .iter()
             .enumerate()
-            .map(|(i, s)| (s.as_str(), i as u32))
+            .map(|(i, s)| (s, i as u32))
             .collect();
         let rmap: HashMap<&str, u32> = records
             .right_ids
             .iter()
             .enumerate()
-            .map(|(i, s)| (s.as_str(), i as u32))
+            .map(|(i, s)| (s, i as u32))
             .collect();
         let cands = &mut labelled;
         let before = cands.len();

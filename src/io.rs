@@ -6,6 +6,7 @@
 //! only when all of them are complete, so a failed run leaves no partial outputs.
 
 use crate::error::{Error, Result};
+use crate::texts::Texts;
 use rayon::prelude::*;
 use std::collections::HashMap;
 use std::fs::File;
@@ -21,9 +22,9 @@ pub struct Table {
     /// The file the table was read from (as given), for messages.
     pub path: PathBuf,
     /// Record ids in row order.
-    pub ids: Vec<String>,
+    pub ids: Texts,
     /// The needed columns, by name, each with one trimmed value per row ("" = missing).
-    pub columns: HashMap<String, Vec<String>>,
+    pub columns: HashMap<String, Texts>,
     /// Every column name of the header, trimmed, in file order.
     pub header: Vec<String>,
     /// The 1-based line on which each row starts, for messages.
@@ -58,26 +59,26 @@ impl Table {
     }
 
     /// The values of a needed column.
-    pub fn column(&self, name: &str) -> &[String] {
-        self.columns.get(name).map(Vec::as_slice).unwrap_or(&[])
+    pub fn column(&self, name: &str) -> &Texts {
+        self.columns.get(name).unwrap_or(&crate::texts::EMPTY)
     }
 
     /// One row's value of a field's column spec: a column name, or several joined with `+`
     /// (a grouped comparison), whose non-empty values are joined with a space.
     pub fn value(&self, spec: &str, row: usize) -> String {
         if !spec.contains('+') {
-            return self.column(spec).get(row).cloned().unwrap_or_default();
+            return self.column(spec).get(row).unwrap_or_default().to_string();
         }
         let parts: Vec<&str> = spec
             .split('+')
-            .filter_map(|c| self.column(c.trim()).get(row).map(String::as_str))
+            .filter_map(|c| self.column(c.trim()).get(row))
             .filter(|v| !v.is_empty())
             .collect();
         parts.join(" ")
     }
 
     /// Every row's value of a column spec (see [`Table::value`]).
-    pub fn values(&self, spec: &str) -> std::borrow::Cow<'_, [String]> {
+    pub fn values(&self, spec: &str) -> std::borrow::Cow<'_, Texts> {
         if spec.contains('+') {
             std::borrow::Cow::Owned((0..self.len()).map(|r| self.value(spec, r)).collect())
         } else {
@@ -279,12 +280,7 @@ pub fn read_table_from(bytes: &[u8], label: &Path, spec: &ReadSpec) -> Result<Ta
 
 /// The ids, needed columns, header names and row lines of a table read from CSV bytes (see
 /// [`read_table_from`]).
-type Parsed = (
-    Vec<String>,
-    HashMap<String, Vec<String>>,
-    Vec<String>,
-    Vec<u64>,
-);
+type Parsed = (Texts, HashMap<String, Texts>, Vec<String>, Vec<u64>);
 
 /// The error for a column the header lacks: the columns present, the nearest name and, when
 /// the header reads as one column holding `;`, a tab or `|`, the delimiter to set under
@@ -347,21 +343,18 @@ impl CellColumn {
         std::str::from_utf8(raw).ok().map(str::trim)
     }
 
-    /// Every cell's trimmed text (rows in parallel), and the first row whose cell is too long
-    /// or not UTF-8 (its string is left empty).
-    fn strings(&self) -> (Vec<String>, Option<usize>) {
-        let cells: Vec<Option<String>> = (0..self.ends.len())
+    /// Every cell's trimmed text, and the first row whose cell is too long or not UTF-8 (its
+    /// text is left empty). The cells are checked in parallel, then copied in row order.
+    fn texts(&self) -> (Texts, Option<usize>) {
+        let bad = (0..self.ends.len())
             .into_par_iter()
             .with_min_len(4096)
-            .map(|r| self.text(r).map(str::to_string))
-            .collect();
-        let bad = cells.iter().position(Option::is_none);
-        let strings = cells
-            .into_par_iter()
-            .with_min_len(4096)
-            .map(Option::unwrap_or_default)
-            .collect();
-        (strings, bad)
+            .find_first(|&r| self.text(r).is_none());
+        let mut out = Texts::with_capacity(self.ends.len(), self.bytes.len());
+        for r in 0..self.ends.len() {
+            out.push(self.text(r).unwrap_or_default());
+        }
+        (out, bad)
     }
 
     /// The error for a cell that [`CellColumn::text`] refused.
@@ -443,8 +436,7 @@ fn parse_table(bytes: &[u8], label: &Path, spec: &ReadSpec) -> Result<Parsed> {
             }
         }
     }
-    let checked: Vec<(Vec<String>, Option<usize>)> =
-        cells.par_iter().map(CellColumn::strings).collect();
+    let checked: Vec<(Texts, Option<usize>)> = cells.par_iter().map(CellColumn::texts).collect();
     // Candidate errors as (row, order within the row, error); the least is the one a
     // row-by-row reading meets first: a row that cannot be read stops before its cells are
     // looked at; then the id cell, the id's emptiness and uniqueness, and the wanted cells in
@@ -519,7 +511,7 @@ pub(crate) fn needed_columns(
 
 /// The first row whose id is empty or seen before, with the message; `lines` number the rows
 /// as `place` says ("line" or "row").
-pub(crate) fn id_problem(ids: &[String], lines: &[u64], place: &str) -> Option<(usize, String)> {
+pub(crate) fn id_problem(ids: &Texts, lines: &[u64], place: &str) -> Option<(usize, String)> {
     let mut seen: HashMap<&str, u64, foldhash::fast::FixedState> =
         HashMap::with_capacity_and_hasher(ids.len(), Default::default());
     for (r, id) in ids.iter().enumerate() {
@@ -888,14 +880,14 @@ mod tests {
             &["name"],
         )
         .unwrap();
-        assert_eq!(t.ids, vec!["1", "2"]);
-        assert_eq!(t.column("name"), &["Ann".to_string(), "Bo\nB".to_string()]);
+        assert_eq!(t.ids.to_strings(), vec!["1", "2"]);
+        assert_eq!(t.column("name").to_strings(), ["Ann", "Bo\nB"]);
         assert_eq!(t.lines, vec![2, 3]);
         assert_eq!(t.header, vec!["id", "name"]);
         // An optional column is read when the header has it and left out when not.
         assert!(!t.columns.contains_key("extra"));
         let t = read(b"id,extra\n1, x\n", &[]).unwrap();
-        assert_eq!(t.column("extra"), &["x".to_string()]);
+        assert_eq!(t.column("extra").to_strings(), ["x"]);
     }
 
     #[test]
@@ -972,7 +964,7 @@ mod tests {
         // The csv reader ends records at a lone CR (old Mac files); lines counted by LF alone
         // made every row of such a file "line 1".
         let t = read(b"id,name\r1,a\r2,\"b\rc\"\r\r3,d\n4,e\r\n5,f", &["name"]).unwrap();
-        assert_eq!(t.ids, vec!["1", "2", "3", "4", "5"]);
+        assert_eq!(t.ids.to_strings(), vec!["1", "2", "3", "4", "5"]);
         assert_eq!(t.lines, vec![2, 3, 6, 7, 8]);
         assert_eq!(
             err(b"id,name\r1,a\r1,b\r", &["name"]),
@@ -1034,10 +1026,10 @@ mod tests {
         let mut s = spec(&["name"]);
         s.encoding = Encoding::Latin1;
         let t = read_table_from(b"id,name\n1,caf\xE9\n", Path::new("t"), &s).unwrap();
-        assert_eq!(t.column("name")[0], "café");
+        assert_eq!(&t.column("name")[0], "café");
         s.encoding = Encoding::Windows1252;
         let t = read_table_from(b"id,name\n1,\x80 5\n", Path::new("t"), &s).unwrap();
-        assert_eq!(t.column("name")[0], "€ 5");
+        assert_eq!(&t.column("name")[0], "€ 5");
     }
 
     #[test]

@@ -32,6 +32,7 @@ pub mod score;
 pub mod synth;
 pub mod tabular;
 pub mod text;
+pub mod texts;
 pub mod tune;
 
 pub use error::{Error, ErrorKind, Result};

@@ -247,6 +247,7 @@ impl Clock {
     }
     fn lap(&mut self, name: &str, timings: &mut Vec<(String, f64)>) {
         timings.push((name.to_string(), self.start.elapsed().as_secs_f64()));
+        crate::budget::trace_memory(name);
         self.start = Instant::now();
     }
 }
@@ -701,9 +702,8 @@ pub fn score_one_to_one(prep: &Prepared, cands: &Candidates) -> (Vec<f64>, f64) 
     if cands.is_empty() {
         return (theta, link_log_odds[0]);
     }
-    let group = vec![0u32; cands.len()];
     let mut prior =
-        confidence::LinkPrior::new(prep.records.n_left(), &cands.left, &cands.right, &group);
+        confidence::LinkPrior::new(prep.records.n_left(), &cands.left, &cands.right, |_| 0);
     for _ in 0..ONE_TO_ONE_ROUNDS {
         let marg = confidence::marginals(
             prep.records.n_left(),

@@ -14,6 +14,7 @@ use crate::config::{FieldSpec, KeySource, Method};
 use crate::error::{Error, Result};
 use crate::io::Table;
 use crate::text::{self, Date, DateOrder};
+use crate::texts::Texts;
 use rayon::prelude::*;
 use std::collections::HashMap;
 
@@ -148,9 +149,9 @@ fn missing_rate(ids: &[u32]) -> f64 {
 #[derive(Debug, Clone)]
 pub struct Records {
     /// Left record ids in row order.
-    pub left_ids: Vec<String>,
+    pub left_ids: Texts,
     /// Right record ids in row order.
-    pub right_ids: Vec<String>,
+    pub right_ids: Texts,
     /// One entry per configured field, in config order.
     pub fields: Vec<FieldValues>,
     /// One entry per key-only column (`Config::key_columns`): values for blocking only.
@@ -427,13 +428,13 @@ fn side_ids(rows: &[u32], of: &[u32], counts: &mut [u32], table: &Table) -> (Vec
 }
 
 /// Interns raw texts in first-seen order: the index, the distinct texts, and each value's id.
-fn intern_raw(vals: &[String]) -> (FastMap<&str, u32>, Vec<&str>, Vec<u32>) {
+fn intern_raw(vals: &Texts) -> (FastMap<&str, u32>, Vec<&str>, Vec<u32>) {
     let mut index: FastMap<&str, u32> = FastMap::default();
     let mut raw: Vec<&str> = Vec::new();
     let ids = vals
         .iter()
         .map(|v| {
-            *index.entry(v.as_str()).or_insert_with(|| {
+            *index.entry(v).or_insert_with(|| {
                 raw.push(v);
                 (raw.len() - 1) as u32
             })

@@ -10,6 +10,7 @@
 
 use crate::error::{Error, Result};
 use crate::io::{ReadSpec, ScoredPairs, Table, MAX_CELL_BYTES};
+use crate::texts::Texts;
 use arrow_array::cast::AsArray;
 use arrow_array::types::*;
 use arrow_array::{Array, ArrayRef, Float64Array, RecordBatch, StringArray};
@@ -189,7 +190,7 @@ pub fn table_from_batches(
     let header = names_of(schema);
     let wanted = wanted_columns(&header, spec).map_err(at)?;
     let rows: usize = batches.iter().map(RecordBatch::num_rows).sum();
-    let mut values: Vec<Vec<String>> = Vec::with_capacity(wanted.len());
+    let mut values: Vec<Texts> = Vec::with_capacity(wanted.len());
     for (name, i) in &wanted {
         let mut col = Vec::with_capacity(rows);
         for b in batches {
@@ -200,7 +201,7 @@ pub fn table_from_batches(
                     .with_column(name.as_str()))
             })?;
         }
-        values.push(col);
+        values.push(col.iter().collect());
     }
     let ids = values.remove(0);
     if ids.is_empty() {
@@ -218,7 +219,7 @@ pub fn table_from_batches(
         let col = if k == 0 { &ids } else { &values[k - 1] };
         hash.update((name.len() as u64).to_le_bytes());
         hash.update(name.as_bytes());
-        for v in col {
+        for v in col.iter() {
             hash.update((v.len() as u64).to_le_bytes());
             hash.update(v.as_bytes());
             bytes += v.len() as u64 + 1;

@@ -404,8 +404,8 @@ pub const STRATUM_PRIOR_PAIRS: f64 = 50.0;
 pub struct Strata {
     /// The pass mask of each stratum, ascending.
     pub masks: Vec<u16>,
-    /// The stratum of each pair.
-    pub of_pair: Vec<u32>,
+    /// The stratum of each pair (at most 65,536 masks, so two bytes a pair).
+    pub of_pair: Vec<u16>,
     /// The fit of each stratum (empty until [`Strata::refit`]).
     pub fits: Vec<Fit>,
 }
@@ -422,9 +422,9 @@ impl Strata {
             .filter(|&m| seen[m])
             .map(|m| m as u16)
             .collect();
-        let mut index = vec![0u32; 1 << 16];
+        let mut index = vec![0u16; 1 << 16];
         for (j, &m) in masks.iter().enumerate() {
-            index[m as usize] = j as u32;
+            index[m as usize] = j as u16;
         }
         let of_pair = passes.par_iter().map(|&m| index[m as usize]).collect();
         Strata {

@@ -244,19 +244,32 @@ impl Weights for PairWeights {
     }
 }
 
-/// One weight per group of pairs; each position holds its pair's group.
-pub struct GroupWeights {
-    pub left: Vec<u16>,
-    pub right: Vec<u16>,
+/// One weight per group of pairs; each position holds its pair's group (`u8` when there are
+/// at most 256 groups: one byte a position in each order).
+pub struct GroupWeights<T> {
+    pub left: Vec<T>,
+    pub right: Vec<T>,
     pub w: Vec<f64>,
 }
 
-impl Weights for GroupWeights {
+impl<T: Copy + Into<usize> + Sync> Weights for GroupWeights<T> {
     fn left(&self, pos: usize) -> f64 {
-        self.w[self.left[pos] as usize]
+        self.w[self.left[pos].into()]
     }
     fn right(&self, pos: usize) -> f64 {
-        self.w[self.right[pos] as usize]
+        self.w[self.right[pos].into()]
+    }
+}
+
+/// The same weight for every pair.
+pub struct OneWeight(pub f64);
+
+impl Weights for OneWeight {
+    fn left(&self, _: usize) -> f64 {
+        self.0
+    }
+    fn right(&self, _: usize) -> f64 {
+        self.0
     }
 }
 
@@ -439,8 +452,13 @@ fn next_active(
 pub fn odds<W: Weights>(g: &FlatGraph, w: &W, msg: &Messages) -> Vec<f64> {
     (0..g.len())
         .into_par_iter()
-        .map(|pos| w.left(pos) * msg.lm[pos] * msg.rm[g.l2r[pos] as usize])
+        .map(|pos| odds_at(g, w, msg, pos))
         .collect()
+}
+
+/// The odds of the pair at one left-order position (see [`odds`]).
+pub fn odds_at<W: Weights>(g: &FlatGraph, w: &W, msg: &Messages, pos: usize) -> f64 {
+    w.left(pos) * msg.lm[pos] * msg.rm[g.l2r[pos] as usize]
 }
 
 /// Updates one side's messages in place; returns the largest change of a marginal.

@@ -353,14 +353,28 @@ pub struct LinkPrior {
     /// The graph of the other pairs, for BP.
     graph: flat::FlatGraph,
     messages: flat::Messages,
-    /// The group of the pair at each position of `graph`, in left order and in right order.
-    groups: (Vec<u16>, Vec<u16>),
+    /// The group of the pair at each position of `graph`.
+    groups: Groups,
     fresh: bool,
 }
 
+/// The group of the pair at each position of the prior's graph, in left order and in right
+/// order: nothing stored when every pair is in group 0 (the pooled rounds), one byte a
+/// position and order for up to 256 groups, two beyond (groups past 65,535 share the last).
+enum Groups {
+    One,
+    Narrow(Vec<u8>, Vec<u8>),
+    Wide(Vec<u16>, Vec<u16>),
+}
+
 impl LinkPrior {
-    /// The prior's graph: every pair of `left` / `right`, pair i in group `group[i]`.
-    pub fn new(n_left: usize, left: &[u32], right: &[u32], group: &[u32]) -> LinkPrior {
+    /// The prior's graph: every pair of `left` / `right`, pair i in group `group(i)`.
+    pub fn new(
+        n_left: usize,
+        left: &[u32],
+        right: &[u32],
+        group: impl Fn(usize) -> u32 + Sync,
+    ) -> LinkPrior {
         let n_right = right.iter().map(|&r| r as usize + 1).max().unwrap_or(0);
         let mut split = Split::new(n_left, n_right, left, right, |_| true);
         let bp = std::mem::take(&mut split.bp);
@@ -381,7 +395,7 @@ impl LinkPrior {
             small_group: Vec::new(),
             graph,
             messages,
-            groups: (Vec::new(), Vec::new()),
+            groups: Groups::One,
             fresh: true,
         };
         prior.regroup(group);
@@ -389,16 +403,31 @@ impl LinkPrior {
     }
 
     /// New groups of the pairs (the messages are kept).
-    pub fn regroup(&mut self, group: &[u32]) {
+    pub fn regroup(&mut self, group: impl Fn(usize) -> u32 + Sync) {
         let g = &self.graph;
         let clip = |x: u32| x.min(u16::MAX as u32) as u16;
-        let gl: Vec<u16> = (0..g.len()).map(|pos| clip(group[g.pair(pos)])).collect();
-        let gr = g.to_right_order(&gl);
-        self.groups = (gl, gr);
+        let widest = (0..g.len())
+            .into_par_iter()
+            .map(|pos| group(g.pair(pos)))
+            .max()
+            .unwrap_or(0);
+        self.groups = match widest {
+            0 => Groups::One,
+            1..=255 => {
+                let gl: Vec<u8> = (0..g.len()).map(|pos| group(g.pair(pos)) as u8).collect();
+                let gr = g.to_right_order(&gl);
+                Groups::Narrow(gl, gr)
+            }
+            _ => {
+                let gl: Vec<u16> = (0..g.len()).map(|pos| clip(group(g.pair(pos)))).collect();
+                let gr = g.to_right_order(&gl);
+                Groups::Wide(gl, gr)
+            }
+        };
         self.small_group = self
             .small
             .iter()
-            .map(|(_, pairs)| pairs.iter().map(|&i| clip(group[i as usize])).collect())
+            .map(|(_, pairs)| pairs.iter().map(|&i| clip(group(i as usize))).collect())
             .collect();
     }
 
@@ -428,38 +457,35 @@ impl LinkPrior {
         posterior: &[f64],
         opts: &BpOptions,
     ) -> Vec<f64> {
-        let g = &self.graph;
-        let (gl, gr) = std::mem::take(&mut self.groups);
-        let w = flat::GroupWeights {
-            left: gl,
-            right: gr,
-            w: link_log_odds.iter().map(|&l| weight_of(l)).collect(),
-        };
         let n = link_log_odds.len();
-        let mut post_k = vec![0.0f64; n];
-        for (pos, &k) in w.left.iter().enumerate() {
-            post_k[k as usize] += posterior[g.pair(pos)];
-        }
+        let w: Vec<f64> = link_log_odds.iter().map(|&l| weight_of(l)).collect();
         // From fresh messages PRIOR_BP_ITERATIONS sweeps, then PRIOR_WARM_SWEEPS per step
         // from the last step's messages.
-        let sweeps = if self.fresh {
+        let sweeps = opts.max_iterations.min(if self.fresh {
             PRIOR_BP_ITERATIONS
         } else {
             PRIOR_WARM_SWEEPS
-        };
+        });
         self.fresh = false;
-        flat::run(
-            g,
-            &w,
-            &mut self.messages,
-            opts.max_iterations.min(sweeps),
-            opts.damping,
-            0.0,
-        );
-        let mut prior_k = vec![0.0f64; n];
-        for (pos, o) in flat::odds(g, &w, &self.messages).iter().enumerate() {
-            prior_k[w.left[pos] as usize] += o / (1.0 + o);
-        }
+        let (g, msg) = (&self.graph, &mut self.messages);
+        let (mut post_k, mut prior_k) = match std::mem::replace(&mut self.groups, Groups::One) {
+            Groups::One => {
+                let w = flat::OneWeight(w.first().copied().unwrap_or(1.0));
+                group_sums(g, msg, &w, |_| 0, n, posterior, sweeps, opts)
+            }
+            Groups::Narrow(left, right) => {
+                let w = flat::GroupWeights { left, right, w };
+                let sums = group_sums(g, msg, &w, |p| w.left[p].into(), n, posterior, sweeps, opts);
+                self.groups = Groups::Narrow(w.left, w.right);
+                sums
+            }
+            Groups::Wide(left, right) => {
+                let w = flat::GroupWeights { left, right, w };
+                let sums = group_sums(g, msg, &w, |p| w.left[p].into(), n, posterior, sweeps, opts);
+                self.groups = Groups::Wide(w.left, w.right);
+                sums
+            }
+        };
         let lambda: &[f64] = link_log_odds;
         let exact: Vec<Vec<f64>> = self
             .small
@@ -488,9 +514,35 @@ impl LinkPrior {
                     (link_log_odds[k] + (post_k[k] / prior_k[k]).ln()).clamp(-30.0, 30.0);
             }
         }
-        self.groups = (w.left, w.right);
         prior_k
     }
+}
+
+/// The prior's BP sweeps on `g` from `msg`, then per group the posterior's sum and the
+/// prior's marginals' sum over the graph's pairs (`group_at` gives a left-order position's
+/// group), each added in left order, one position at a time (no per-pair buffer).
+#[allow(clippy::too_many_arguments)]
+fn group_sums<W: flat::Weights>(
+    g: &flat::FlatGraph,
+    msg: &mut flat::Messages,
+    w: &W,
+    group_at: impl Fn(usize) -> usize,
+    n: usize,
+    posterior: &[f64],
+    sweeps: usize,
+    opts: &BpOptions,
+) -> (Vec<f64>, Vec<f64>) {
+    let mut post_k = vec![0.0f64; n];
+    for pos in 0..g.len() {
+        post_k[group_at(pos)] += posterior[g.pair(pos)];
+    }
+    flat::run(g, w, msg, sweeps, opts.damping, 0.0);
+    let mut prior_k = vec![0.0f64; n];
+    for pos in 0..g.len() {
+        let o = flat::odds_at(g, w, msg, pos);
+        prior_k[group_at(pos)] += o / (1.0 + o);
+    }
+    (post_k, prior_k)
 }
 
 /// One step of the link prior from fresh messages (see [`LinkPrior::step`]); callers that
@@ -504,7 +556,7 @@ pub fn link_prior_step(
     posterior: &[f64],
     opts: &BpOptions,
 ) -> Vec<f64> {
-    LinkPrior::new(n_left, left, right, group).step(link_log_odds, posterior, opts)
+    LinkPrior::new(n_left, left, right, |i| group[i]).step(link_log_odds, posterior, opts)
 }
 
 /// A small component in local indices, for exact enumeration.
@@ -769,7 +821,7 @@ mod tests {
         }
         let mut lambda = vec![-2.0; mass.len()];
         // Kept across steps, as the fit keeps it: BP is exact on these trees once converged.
-        let mut prior = LinkPrior::new(star as usize, &left, &right, &group);
+        let mut prior = LinkPrior::new(star as usize, &left, &right, |i| group[i]);
         for _ in 0..200 {
             prior.step(&mut lambda, &post, &BpOptions::default());
         }

@@ -1119,8 +1119,8 @@ fn emit_linkage(
         c.write_record(&head).map_err(to_io)?;
         for &i in &l.links {
             let mut row = vec![
-                prep.records.left_ids[prep.cands.left[i] as usize].clone(),
-                prep.records.right_ids[prep.cands.right[i] as usize].clone(),
+                prep.records.left_ids[prep.cands.left[i] as usize].to_string(),
+                prep.records.right_ids[prep.cands.right[i] as usize].to_string(),
                 num(prep.weight[i]),
                 confidence_csv(l.confidence.p[i], l.cutoff),
             ];
@@ -1155,11 +1155,14 @@ fn emit_linkage(
                         } else {
                             &prep.records.left_ids[prep.cands.left[i] as usize]
                         };
-                        (other.clone(), confidence_csv(l.confidence.p[i], l.cutoff))
+                        (
+                            other.to_string(),
+                            confidence_csv(l.confidence.p[i], l.cutoff),
+                        )
                     }
                     None => (String::new(), String::new()),
                 };
-                c.write_record([ids[r].as_str(), reason.as_str(), &other, &conf])
+                c.write_record([&ids[r], reason.as_str(), &other, &conf])
                     .map_err(to_io)?;
             }
             c.flush()
@@ -1391,8 +1394,8 @@ fn pair_rows(
     for (i, tag) in rows {
         let (a, b) = (prep.cands.left[i] as usize, prep.cands.right[i] as usize);
         let mut row = vec![
-            prep.records.left_ids[a].clone(),
-            prep.records.right_ids[b].clone(),
+            prep.records.left_ids[a].to_string(),
+            prep.records.right_ids[b].to_string(),
             tag,
             confidence_csv(l.confidence.p[i], l.cutoff),
             num(prep.weight[i]),

@@ -14,6 +14,7 @@
 pub mod server;
 
 use crate::records::Records;
+use crate::texts::Texts;
 use crate::{Error, Result};
 use std::collections::{BTreeMap, HashMap};
 use std::io::Write;
@@ -301,11 +302,8 @@ pub fn apply_lines(
     Ok(out)
 }
 
-fn index(ids: &[String]) -> HashMap<&str, u32> {
-    ids.iter()
-        .enumerate()
-        .map(|(i, s)| (s.as_str(), i as u32))
-        .collect()
+fn index(ids: &Texts) -> HashMap<&str, u32> {
+    ids.iter().enumerate().map(|(i, s)| (s, i as u32)).collect()
 }
 
 /// The log posterior odds given to decided pairs: a "same person" pair gets +FORCED, a

@@ -65,8 +65,8 @@ impl Run {
     fn pair_ids(&self, i: usize) -> (String, String) {
         let p = &self.prep;
         (
-            p.records.left_ids[p.cands.left[i] as usize].clone(),
-            p.records.right_ids[p.cands.right[i] as usize].clone(),
+            p.records.left_ids[p.cands.left[i] as usize].to_string(),
+            p.records.right_ids[p.cands.right[i] as usize].to_string(),
         )
     }
 

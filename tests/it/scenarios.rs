@@ -338,14 +338,14 @@ pub fn prepare(case: &Case, seed: u64, dir: &Path) -> (Prepared, HashSet<(u32, u
         .left_ids
         .iter()
         .enumerate()
-        .map(|(i, s)| (s.as_str(), i as u32))
+        .map(|(i, s)| (s, i as u32))
         .collect();
     let ri: std::collections::HashMap<&str, u32> = prep
         .records
         .right_ids
         .iter()
         .enumerate()
-        .map(|(i, s)| (s.as_str(), i as u32))
+        .map(|(i, s)| (s, i as u32))
         .collect();
     let truth = s
         .truth_csv
@@ -452,7 +452,7 @@ pub fn use_truth_laws(prep: &mut Prepared, truth: &HashSet<(u32, u32)>) {
             ));
         }
         st.fits = fits;
-        groups.clone_from(&st.of_pair);
+        groups = st.of_pair.iter().map(|&g| g as u32).collect();
     }
     let fits: Vec<Fit> = match &prep.strata {
         Some(st) => st.fits.clone(),

@@ -65,8 +65,8 @@ fn completeness_estimates_match_the_truth() {
         let found = (0..c.len())
             .filter(|&i| {
                 let pair = (
-                    prep.records.left_ids[c.left[i] as usize].clone(),
-                    prep.records.right_ids[c.right[i] as usize].clone(),
+                    prep.records.left_ids[c.left[i] as usize].to_string(),
+                    prep.records.right_ids[c.right[i] as usize].to_string(),
                 );
                 truth.contains(&pair)
             })
@@ -129,8 +129,8 @@ fn completeness_counts_only_records_with_a_partner() {
         let found = (0..c.len())
             .filter(|&i| {
                 truth.contains(&(
-                    prep.records.left_ids[c.left[i] as usize].clone(),
-                    prep.records.right_ids[c.right[i] as usize].clone(),
+                    prep.records.left_ids[c.left[i] as usize].to_string(),
+                    prep.records.right_ids[c.right[i] as usize].to_string(),
                 ))
             })
             .count();
