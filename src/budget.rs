@@ -560,7 +560,8 @@ mod tests {
             m.contains("add a key part to pass 2 (`surname:soundex + birth:year`, 108,000,000 pairs) or raise --memory-budget"),
             "{m}"
         );
-        assert!(m.contains("10.9 GB"), "{m}");
+        // 20 MB + 4.5 x 1 MB + 64 B x 113M pairs = 7.26 GB.
+        assert!(m.contains("7.3 GB"), "{m}");
         assert!(m.contains("1.0 GB (--memory-budget 1G)"), "{m}");
         assert!(m.contains("113,000,000 candidate pairs"), "{m}");
         assert!(!m.contains('\n'));

@@ -87,12 +87,24 @@ impl Comparator {
         }
         match self.method {
             Method::Exact => 1,
+            // ASCII texts as bytes through this module's allocation-free versions (bit for bit
+            // strsim's on characters, see the tests); others through strsim.
             Method::JaroWinkler => {
-                let s = strsim::jaro_winkler(&fv.dict[a as usize], &fv.dict[b as usize]);
+                let (x, y) = (&fv.dict[a as usize], &fv.dict[b as usize]);
+                let s = if x.is_ascii() && y.is_ascii() {
+                    jaro_winkler(x.as_bytes(), y.as_bytes())
+                } else {
+                    strsim::jaro_winkler(x, y)
+                };
                 self.similarity_level(s)
             }
             Method::Levenshtein => {
-                let s = strsim::normalized_levenshtein(&fv.dict[a as usize], &fv.dict[b as usize]);
+                let (x, y) = (&fv.dict[a as usize], &fv.dict[b as usize]);
+                let s = if x.is_ascii() && y.is_ascii() {
+                    normalized_levenshtein(x.as_bytes(), y.as_bytes())
+                } else {
+                    strsim::normalized_levenshtein(x, y)
+                };
                 self.similarity_level(s)
             }
             Method::Date => date_level(fv.dates[a as usize], fv.dates[b as usize]),

@@ -62,10 +62,11 @@ impl Progress for Silent {
 /// pair counts (from their key counts; see [`block::Plan`]).
 ///
 /// The peak resident memory of `link` is about [`MEMORY_BASE`] + [`MEMORY_PER_INPUT_BYTE`] x the
-/// input files' bytes + [`MEMORY_PER_PAIR`] x the candidate pairs; measured on synth tables
-/// (6 fields, 2 passes; GNU time's maximum resident set) at 100,000 and 200,000 records a side
-/// with loose and tight blocking: 268, 312 and 722 MB against 268, 314 and 723 MB from the
-/// formula. The pairs are bounded by the sum of the passes' pairs, which counts a pair found by
+/// input files' bytes + [`MEMORY_PER_PAIR`] x the candidate pairs; fitted to synth tables
+/// (6 fields, 2 passes; GNU time's maximum resident set) at 100,000 to 1,000,000 records a side
+/// with loose and tight blocking (`benches/scale.sh`): 164, 448, 2,145 and 7,545 MB (loose,
+/// 100k to 1M) and 104, 266 and 824 MB (tight, 100k, 300k, 1M) against 169, 456, 2,128,
+/// 7,690, 101, 263 and 833 MB from the formula. The pairs are bounded by the sum of the passes' pairs, which counts a pair found by
 /// two passes twice, so the estimate errs high where the passes overlap.
 #[derive(Debug, Clone, serde::Serialize)]
 pub struct MemoryEstimate {
@@ -80,9 +81,9 @@ pub struct MemoryEstimate {
 /// Fixed part of the peak memory (see [`MemoryEstimate`]).
 pub const MEMORY_BASE: f64 = 20e6;
 /// Peak memory per byte of the input files (the records, cleaned, interned and their keys).
-pub const MEMORY_PER_INPUT_BYTE: f64 = 8.4;
+pub const MEMORY_PER_INPUT_BYTE: f64 = 4.5;
 /// Peak memory per candidate pair (the pairs, patterns, weights, BP graphs and messages).
-pub const MEMORY_PER_PAIR: f64 = 96.0;
+pub const MEMORY_PER_PAIR: f64 = 64.0;
 
 impl MemoryEstimate {
     /// The estimate for input files of `input_bytes` and passes of these pair counts.

@@ -202,31 +202,42 @@ fn reference_with(
         .par_iter()
         .zip(&levels)
         .map(|(&a, lv)| {
-            let mut w: Vec<f64> = (0..nr)
-                .map(|b| {
-                    // The pattern's weight in field order, then the value-frequency terms, as
-                    // the run weighs its pairs.
-                    let mut w = 0.0;
-                    for (f, fv) in fields.iter().enumerate() {
-                        let y = fv.right[b];
-                        if y != MISSING {
-                            let l = lv[f][y as usize];
-                            if l != MISSING_LEVEL {
-                                w += level_weight[f][l as usize];
-                            }
-                        }
+            // The pattern's weight in field order, then the value-frequency terms, as the run
+            // weighs its pairs; one field at a time over every right record, through a table
+            // of the weight by right value (the same sums, term for term, as pair by pair).
+            let mut w = vec![0.0f64; nr];
+            let mut by_value: Vec<f64> = Vec::new();
+            for (f, fv) in fields.iter().enumerate() {
+                by_value.clear();
+                by_value.extend(lv[f].iter().map(|&l| {
+                    if l == MISSING_LEVEL {
+                        0.0
+                    } else {
+                        level_weight[f][l as usize]
                     }
-                    for (f, vf) in frequency.iter().enumerate() {
-                        if let Some(vf) = vf {
-                            let (x, y) = (fields[f].left[a as usize], fields[f].right[b]);
-                            if x != MISSING && y != MISSING && lv[f][y as usize] == 0 {
-                                w += vf.adjustment[x as usize];
-                            }
-                        }
+                }));
+                // Adding 0 for a missing level leaves a sum as it was (never -0: it starts at
+                // +0 and round-to-nearest cancels to +0).
+                for (x, &y) in w.iter_mut().zip(&fv.right) {
+                    if y != MISSING {
+                        *x += by_value[y as usize];
                     }
-                    w
-                })
-                .collect();
+                }
+            }
+            for (f, vf) in frequency.iter().enumerate() {
+                let (Some(vf), x) = (vf, fields[f].left[a as usize]) else {
+                    continue;
+                };
+                if x == MISSING {
+                    continue;
+                }
+                let adjust = vf.adjustment[x as usize];
+                for (w, &y) in w.iter_mut().zip(&fields[f].right) {
+                    if y != MISSING && lv[f][y as usize] == 0 {
+                        *w += adjust;
+                    }
+                }
+            }
             for (x, f) in w.iter_mut().zip(&free_of_all) {
                 *x += f;
             }
