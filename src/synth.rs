@@ -603,11 +603,14 @@ fn relative_of(rng: &mut Rng, p: &Person, other: &Person) -> Person {
             other_given(&mut q);
             q.sex = if rng.chance(0.5) { 'F' } else { 'M' };
         }
-        // A neighbour: another family a few doors away.
+        // A neighbour: another family a few doors away. Its own birth date: with another
+        // person's given name, sex and birth date all three, a neighbour was a copy of a
+        // random person under a new surname (for left people, one right record in 15 had a
+        // namesake born the same day, twenty times what chance gives).
         _ => {
             q.given = other.given.clone();
             q.surname = other.surname.clone();
-            q.birth = other.birth;
+            q.birth = random_birth(rng, 1940, 2015);
             q.sex = other.sex;
             q.house = (p.house + 1 + rng.below(4) as u32).max(1);
             q.household = u32::MAX;
