@@ -348,6 +348,18 @@ fn build_keys(records: &Records, parts: &[KeyPart]) -> Keys {
     }
 }
 
+/// Each record's key text for `pass` (its parts' transformed values joined with `|`, as in
+/// messages), on the left side or the right; `None` where a part is missing. Two records share
+/// a block of the pass exactly when their texts are equal, so a join on these texts (a
+/// distributed engine's) makes the pass's pairs, before its `max_block_pairs` cap.
+pub fn key_texts(records: &Records, pass: &Pass, left: bool) -> Vec<Option<String>> {
+    let keys = build_keys(records, &pass.parts);
+    let side = if left { &keys.left } else { &keys.right };
+    side.par_iter()
+        .map(|&k| (k != MISSING).then(|| keys.text(k)))
+        .collect()
+}
+
 /// Groups record indices by key id: (offsets, members) in counting-sort layout.
 fn group(keys: &[u32], n_keys: usize) -> (Vec<u32>, Vec<u32>) {
     let mut start = vec![0u32; n_keys + 1];

@@ -20,6 +20,8 @@ use crate::records::{self, Records};
 use crate::reliability::forecast::{self, ForecastOptions};
 use crate::reliability::separation::{self, FieldSeparation};
 use crate::reliability::{self, AssessInput, Assessment, VerdictRule};
+use crate::texts::Texts;
+use std::path::PathBuf;
 use std::time::Instant;
 
 /// Receives stage names as they start (for progress lines); the core never prints.
@@ -457,6 +459,70 @@ fn drop_empty_fields(
 /// Reads, blocks, compares and fits, with no memory budget.
 pub fn prepare(config: Config, progress: &dyn Progress) -> Result<Prepared> {
     prepare_within(config, progress, &Budget::Off)
+}
+
+/// The records and candidate pairs of a config's blocking, without comparing or fitting
+/// (the reference for a distributed blocking; `given` as in [`prepare_given`]).
+pub fn block_only(config: Config, given: Option<(Table, Table)>) -> Result<(Records, Candidates)> {
+    let (left, right) = match given {
+        Some(tables) => tables,
+        None => (read_side(&config, true)?, read_side(&config, false)?),
+    };
+    check_key_columns(&config, &left, &right)?;
+    let config = drop_empty_fields(config, &left, &right, &mut Vec::new())?;
+    let records = records::build(&left, &right, &config.field, &config.key_columns)?;
+    let passes = passes_from(&config, &config.block, "block")?;
+    let (cands, _) = block::plan(&records, &passes).candidates(&records);
+    Ok((records, cands))
+}
+
+/// One table's blocking keys (see [`side_keys`]).
+pub struct SideKeys {
+    /// The records' ids, in row order.
+    pub ids: Texts,
+    /// The config's passes.
+    pub passes: Vec<Pass>,
+    /// Per pass, each record's key text (`None` where a part is missing).
+    pub keys: Vec<Vec<Option<String>>>,
+}
+
+/// One table's records and the key texts of every pass ([`block::key_texts`]), in pass
+/// order, with the passes; the other table is taken as empty. A sorted-neighbourhood pass is
+/// an error: its pairs come from an order over both tables, not from equal keys.
+pub fn side_keys(config: &Config, table: &Table, left: bool) -> Result<SideKeys> {
+    let empty = Table {
+        path: PathBuf::new(),
+        ids: Texts::new(),
+        columns: Default::default(),
+        header: Vec::new(),
+        lines: Vec::new(),
+        bytes: 0,
+        sha256: String::new(),
+        place: "row",
+    };
+    let (l, r) = if left {
+        (table, &empty)
+    } else {
+        (&empty, table)
+    };
+    let records = records::build(l, r, &config.field, &config.key_columns)?;
+    let passes = passes_from(config, &config.block, "block")?;
+    if let Some(p) = passes.iter().find(|p| p.window.is_some()) {
+        return Err(Error::config(format!(
+            "{} is a sorted-neighbourhood pass (`window`), which is made from an order over both tables, not from equal keys; give it keys only to block by joins",
+            p.name
+        )));
+    }
+    let keys = passes
+        .iter()
+        .map(|p| block::key_texts(&records, p, left))
+        .collect();
+    let ids = if left {
+        records.left_ids
+    } else {
+        records.right_ids
+    };
+    Ok(SideKeys { ids, passes, keys })
 }
 
 /// Reads, blocks, compares and fits; with a budget, stops before making any pair when the

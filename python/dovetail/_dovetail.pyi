@@ -63,3 +63,13 @@ def synth(
 ) -> Tuple[Outputs, str]: ...
 def write_plain(outputs: Outputs, folder: str) -> List[str]: ...
 def audit(folder: str) -> str: ...
+def block_keys(
+    table: _Table, config_path: Optional[str], config_json: Optional[str], left: bool
+) -> Any: ...  # an Arrow stream: id, pass, key
+def block_passes(config_path: Optional[str], config_json: Optional[str]) -> List[Tuple[str, int]]: ...
+def candidate_pairs(
+    left: Optional[_Table],
+    right: Optional[_Table],
+    config_path: Optional[str],
+    config_json: Optional[str],
+) -> Any: ...  # an Arrow stream: left_id, right_id, passes

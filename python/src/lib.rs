@@ -14,6 +14,7 @@
 mod errors;
 mod frames;
 mod run;
+mod spark;
 
 use dovetail::budget::Budget;
 use dovetail::config::Config;
@@ -518,6 +519,9 @@ fn _dovetail(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(synth, m)?)?;
     m.add_function(wrap_pyfunction!(write_plain, m)?)?;
     m.add_function(wrap_pyfunction!(audit, m)?)?;
+    m.add_function(wrap_pyfunction!(spark::block_keys, m)?)?;
+    m.add_function(wrap_pyfunction!(spark::block_passes, m)?)?;
+    m.add_function(wrap_pyfunction!(spark::candidate_pairs, m)?)?;
     m.add("__version__", env!("CARGO_PKG_VERSION"))?;
     Ok(())
 }

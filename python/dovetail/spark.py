@@ -1,0 +1,135 @@
+"""dovetail on Apache Spark: the stages mapped onto Spark, each piece done by the library.
+
+Work in progress (issue 22). What is here is the blocking stage:
+
+* :func:`blocking_keys` - one table's key text per record and blocking pass, computed on the
+  executors by the library's own transforms (``mapInArrow``), so they equal the keys of a
+  single-machine run;
+* :func:`candidate_pairs` - the candidate pairs as Spark joins on those keys, each pass's
+  blocks over its ``max_block_pairs`` cap dropped as on one machine, the passes' pairs united
+  with the mask of the passes that found each (bit p for pass p).
+
+Comparison, the fit from aggregated pattern counts, and the per-component refinement and
+matching come next; see DEVELOPERS.md ("Spark").
+
+The executors need the ``dovetail`` package and pyarrow installed in the Python that Spark
+runs (``spark.pyspark.python`` / ``PYSPARK_PYTHON``). The config is sent to them as text, so
+it needs no shared file system.
+
+Links are probabilistic. Review them before acting on any person, and follow local
+data-protection law, approvals and disclosure rules for the data you link.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+from typing import TYPE_CHECKING, Any, Iterator, List, Mapping, Tuple, Union
+
+import pyarrow as pa
+
+from . import _dovetail, _json_default
+
+if TYPE_CHECKING:  # pragma: no cover
+    from pyspark.sql import DataFrame
+
+KEY_SCHEMA = "id string, pass short, key string"
+"""The schema of :func:`blocking_keys`: record id, pass position (from 0), key text."""
+
+
+def config_text(config: Union[str, "os.PathLike[str]", Mapping[str, Any]]) -> str:
+    """The config as JSON text for the executors: a dict as given, a TOML file read here.
+
+    Paths inside it (``[link] decisions``, ``[model] labelled``) are not used by the stages
+    that run on the executors.
+    """
+    if isinstance(config, Mapping):
+        return json.dumps(config, default=_json_default)
+    try:
+        import tomllib
+    except ImportError:  # Python < 3.11
+        raise TypeError("on Python < 3.11 give the config as a dict") from None
+    with open(os.fspath(config), "rb") as f:
+        return json.dumps(tomllib.load(f))
+
+
+def _keys_of_partition(config_json: str, left: bool):
+    def run(batches: Iterator[pa.RecordBatch]) -> Iterator[pa.RecordBatch]:
+        from dovetail import _dovetail as native
+
+        for b in batches:
+            if b.num_rows == 0:
+                continue
+            keys = pa.table(native.block_keys(pa.Table.from_batches([b]), None, config_json, left))
+            yield from keys.to_batches()
+
+    return run
+
+
+def blocking_keys(df: "DataFrame", config: Any, *, left: bool) -> "DataFrame":
+    """One table's blocking keys (:data:`KEY_SCHEMA`), one row per record and pass with a key.
+
+    ``left`` says which table of the config ``df`` is: its ``[left]`` or ``[right]`` id and
+    columns are read. A record whose key has a missing part has no row for that pass.
+    """
+    return _keys(df, config_text(config), left)
+
+
+def _keys(df: "DataFrame", config_json: str, left: bool) -> "DataFrame":
+    return df.mapInArrow(_keys_of_partition(config_json, left), KEY_SCHEMA)
+
+
+def passes(config: Any) -> List[Tuple[str, int]]:
+    """Each blocking pass of the config: (name, its cap on one block's pairs)."""
+    return [(n, int(c)) for n, c in _dovetail.block_passes(None, config_text(config))]
+
+
+def candidate_pairs(left_df: "DataFrame", right_df: "DataFrame", config: Any) -> "DataFrame":
+    """The candidate pairs of the config's blocking, by Spark joins on the library's keys.
+
+    Returns ``left_id``, ``right_id`` and ``passes`` (bit p set when pass p found the pair),
+    one row per pair: the same pairs and masks as a single-machine run. Per pass, a block
+    (records sharing a key) whose left x right records exceed the pass's ``max_block_pairs``
+    is dropped, as on one machine. Sorted-neighbourhood passes (``window``) are refused.
+    """
+    from pyspark.sql import functions as F
+
+    cj = config_text(config)
+    spark = left_df.sparkSession
+    caps = spark.createDataFrame(
+        [(i, cap) for i, (_, cap) in enumerate(passes(config))], "pass short, cap long"
+    )
+    lk = _keys(left_df, cj, True)
+    rk = _keys(right_df, cj, False)
+    size_l = lk.groupBy("pass", "key").agg(F.count(F.lit(1)).alias("nl"))
+    size_r = rk.groupBy("pass", "key").agg(F.count(F.lit(1)).alias("nr"))
+    kept = (
+        size_l.join(size_r, ["pass", "key"])
+        .join(F.broadcast(caps), "pass")
+        .where(F.col("nl") * F.col("nr") <= F.col("cap"))
+        .select("pass", "key")
+    )
+    pairs = (
+        lk.withColumnRenamed("id", "left_id")
+        .join(kept, ["pass", "key"])
+        .join(rk.withColumnRenamed("id", "right_id"), ["pass", "key"])
+    )
+    # Each pass gives a pair at most once (one key per record and pass), so the sum of the
+    # passes' bits is their union.
+    return pairs.groupBy("left_id", "right_id").agg(
+        F.sum(F.expr("shiftleft(CAST(1 AS BIGINT), CAST(pass AS INT))")).alias("passes")
+    )
+
+
+def local_candidate_pairs(left: Any, right: Any, config: Any) -> pa.Table:
+    """The single-machine blocking's pairs (``left_id``, ``right_id``, ``passes``), the
+    reference :func:`candidate_pairs` is tested against. Tables as :func:`dovetail.link`
+    takes them."""
+    from . import _config_args, _table_arg
+
+    path, cj = _config_args(config)
+    return pa.table(
+        _dovetail.candidate_pairs(
+            _table_arg(left, "left"), _table_arg(right, "right"), path, cj
+        )
+    )

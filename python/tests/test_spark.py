@@ -1,0 +1,160 @@
+"""The Spark entry point's blocking (issue 22), against the single-machine blocking.
+
+The reference is the library's own blocking run on one machine (`local_candidate_pairs`:
+keys, blocks, caps and the union of passes as `dovetail link` makes them); the Spark path
+makes the same pairs from key texts by joins. The first tests need no Spark: they join the
+keys with pandas. The Spark tests run Spark in local mode with several partitions; they are
+skipped where pyspark or Java is missing, except when DOVETAIL_REQUIRE_SPARK=1 (.ci/run sets
+it), where that is a failure.
+"""
+
+from __future__ import annotations
+
+import os
+import shutil
+import sys
+
+import pandas as pd
+import pyarrow as pa
+import pytest
+
+from dovetail import _dovetail, spark
+from dovetail.spark import config_text
+
+from conftest import SAMPLE_CONFIG, SAMPLE_LEFT, SAMPLE_RIGHT
+
+if sys.version_info >= (3, 11):
+    import tomllib
+else:  # pragma: no cover
+    tomllib = None
+
+
+def text_frame(path) -> pa.Table:
+    """A CSV as text columns, empty cells as empty strings (as the CLI reads them)."""
+    df = pd.read_csv(path, dtype=str, keep_default_na=False)
+    return pa.Table.from_pandas(df, preserve_index=False)
+
+
+def pair_set(t: pa.Table) -> set:
+    d = t.to_pydict()
+    return set(zip(d["left_id"], d["right_id"], (int(x) for x in d["passes"])))
+
+
+def sample_dict(**block_changes) -> dict:
+    if tomllib is None:
+        pytest.skip("needs Python 3.11 (tomllib)")
+    with open(SAMPLE_CONFIG, "rb") as f:
+        cfg = tomllib.load(f)
+    for b in cfg["block"]:
+        b.update(block_changes)
+    return cfg
+
+
+def joined_with_pandas(left: pa.Table, right: pa.Table, cfg) -> set:
+    """The candidate pairs from the library's key texts, joined by pandas."""
+    cj = config_text(cfg)
+    lk = pa.table(_dovetail.block_keys(left, None, cj, True)).to_pandas()
+    rk = pa.table(_dovetail.block_keys(right, None, cj, False)).to_pandas()
+    caps = dict(enumerate(c for _, c in _dovetail.block_passes(None, cj)))
+    nl = lk.groupby(["pass", "key"]).size().rename("nl")
+    nr = rk.groupby(["pass", "key"]).size().rename("nr")
+    sizes = pd.concat([nl, nr], axis=1, join="inner").reset_index()
+    kept = sizes[sizes.nl * sizes.nr <= sizes["pass"].map(caps)][["pass", "key"]]
+    pairs = lk.merge(kept, on=["pass", "key"]).merge(rk, on=["pass", "key"], suffixes=("_l", "_r"))
+    pairs["bit"] = 2 ** pairs["pass"].astype("int64")
+    masks = pairs.groupby(["id_l", "id_r"])["bit"].sum()
+    return {(a, b, int(m)) for (a, b), m in masks.items()}
+
+
+def test_keys_joined_give_the_single_machine_pairs():
+    left, right = text_frame(SAMPLE_LEFT), text_frame(SAMPLE_RIGHT)
+    cfg = sample_dict()
+    want = pair_set(spark.local_candidate_pairs(left, right, cfg))
+    assert len(want) > 100
+    assert {m for *_, m in want} >= {1, 2, 3}, "pairs from each pass and from both"
+    assert joined_with_pandas(left, right, cfg) == want
+
+
+def test_the_block_cap_drops_the_same_blocks():
+    # A cap of 2 pairs a block drops most blocks of the sample tables; the same ones.
+    left, right = text_frame(SAMPLE_LEFT), text_frame(SAMPLE_RIGHT)
+    cfg = sample_dict(max_block_pairs=2)
+    want = pair_set(spark.local_candidate_pairs(left, right, cfg))
+    full = pair_set(spark.local_candidate_pairs(left, right, sample_dict()))
+    assert 0 < len(want) < len(full)
+    assert joined_with_pandas(left, right, cfg) == want
+
+
+def test_keys_do_not_depend_on_how_a_table_is_split():
+    left = text_frame(SAMPLE_LEFT)
+    cj = config_text(sample_dict())
+    whole = pa.table(_dovetail.block_keys(left, None, cj, True)).to_pandas()
+    parts = pd.concat(
+        pa.table(_dovetail.block_keys(left.slice(i, 37), None, cj, True)).to_pandas()
+        for i in range(0, left.num_rows, 37)
+    )
+    key = ["id", "pass", "key"]
+    assert whole.sort_values(key).reset_index(drop=True).equals(
+        parts.sort_values(key).reset_index(drop=True)
+    )
+
+
+def test_a_window_pass_is_refused():
+    cfg = sample_dict()
+    cfg["block"][0]["window"] = 5
+    with pytest.raises(_dovetail.ConfigError, match="sorted-neighbourhood"):
+        pa.table(_dovetail.block_keys(text_frame(SAMPLE_LEFT), None, config_text(cfg), True))
+
+
+@pytest.fixture(scope="module")
+def session():
+    required = os.environ.get("DOVETAIL_REQUIRE_SPARK") == "1"
+    try:
+        from pyspark.sql import SparkSession
+    except ImportError:
+        if required:
+            pytest.fail("pyspark is not installed and DOVETAIL_REQUIRE_SPARK=1")
+        pytest.skip("pyspark is not installed")
+    if shutil.which("java") is None and not os.environ.get("JAVA_HOME"):
+        if required:
+            pytest.fail("no Java found and DOVETAIL_REQUIRE_SPARK=1")
+        pytest.skip("no Java")
+    # The executors' Python is this one, which has the package.
+    os.environ["PYSPARK_PYTHON"] = sys.executable
+    s = (
+        SparkSession.builder.master("local[2]")
+        .appName("dovetail-tests")
+        .config("spark.ui.enabled", "false")
+        .config("spark.sql.shuffle.partitions", "5")
+        .getOrCreate()
+    )
+    s.sparkContext.setLogLevel("ERROR")
+    yield s
+    s.stop()
+
+
+def spark_and_local(session, cfg, left_parts: int, right_parts: int):
+    """The Spark blocking's pairs (tables read by Spark, split into partitions so that keys
+    and joins cross them) and the single machine's."""
+    read = session.read.option("header", True)
+    left_df = read.csv(str(SAMPLE_LEFT)).repartition(left_parts)
+    right_df = read.csv(str(SAMPLE_RIGHT)).repartition(right_parts)
+    got = {
+        (r.left_id, r.right_id, int(r.passes))
+        for r in spark.candidate_pairs(left_df, right_df, cfg).collect()
+    }
+    want = pair_set(
+        spark.local_candidate_pairs(text_frame(SAMPLE_LEFT), text_frame(SAMPLE_RIGHT), cfg)
+    )
+    return got, want
+
+
+def test_spark_blocking_gives_the_single_machine_pairs(session):
+    got, want = spark_and_local(session, sample_dict(), 3, 4)
+    assert len(want) > 100
+    assert got == want
+
+
+def test_spark_blocking_honours_the_cap(session):
+    got, want = spark_and_local(session, sample_dict(max_block_pairs=2), 2, 3)
+    assert got == want
