@@ -476,6 +476,36 @@ pub fn block_only(config: Config, given: Option<(Table, Table)>) -> Result<(Reco
     Ok((records, cands))
 }
 
+/// The agreement-pattern counts of some pairs of records of two tables (pair i is row
+/// `left[i]` of `left_table` with row `right[i]` of `right_table`): a pair's levels depend
+/// only on its two records, so counts of disjoint sets of pairs add up to those of their
+/// union (a distributed comparison's per-partition piece). Fields are those of the config
+/// as given: a field empty in a whole table, which a single-machine run drops, must be taken
+/// out of the config first.
+pub fn pair_pattern_counts(
+    config: &Config,
+    left_table: &Table,
+    right_table: &Table,
+    left: Vec<u32>,
+    right: Vec<u32>,
+) -> Result<PatternCounts> {
+    let records = records::build(left_table, right_table, &config.field, &config.key_columns)?;
+    let (nl, nr) = (records.n_left() as u32, records.n_right() as u32);
+    if let Some(i) = (0..left.len()).find(|&i| left[i] >= nl || right[i] >= nr) {
+        return Err(Error::input(format!(
+            "pair {i} names row {} of {nl} left and row {} of {nr} right records",
+            left[i], right[i]
+        )));
+    }
+    let passes = vec![0u16; left.len()];
+    let cands = Candidates {
+        left,
+        right,
+        passes,
+    };
+    Ok(compare::compare(&records, &cands).pattern_counts())
+}
+
 /// One table's blocking keys (see [`side_keys`]).
 pub struct SideKeys {
     /// The records' ids, in row order.

@@ -73,3 +73,13 @@ def candidate_pairs(
     config_path: Optional[str],
     config_json: Optional[str],
 ) -> Any: ...  # an Arrow stream: left_id, right_id, passes
+def read_columns(config_path: Optional[str], config_json: Optional[str]) -> Tuple[List[str], List[str]]: ...
+def pattern_counts(
+    left: _Table, right: _Table, left_rows: List[int], right_rows: List[int], config_json: str
+) -> List[Tuple[str, float]]: ...
+def local_pattern_counts(
+    left: Optional[_Table],
+    right: Optional[_Table],
+    config_path: Optional[str],
+    config_json: Optional[str],
+) -> List[Tuple[str, float]]: ...

@@ -9,8 +9,12 @@ Work in progress (issue 22). What is here is the blocking stage:
   blocks over its ``max_block_pairs`` cap dropped as on one machine, the passes' pairs united
   with the mask of the passes that found each (bit p for pass p).
 
-Comparison, the fit from aggregated pattern counts, and the per-component refinement and
-matching come next; see DEVELOPERS.md ("Spark").
+* :func:`pattern_counts` - the candidate pairs compared on the executors (each pair joined
+  with both records' needed columns, levels by the library's comparators), as
+  agreement-pattern counts summed by Spark: the sufficient statistic of the fit.
+
+The fit from those counts on the driver, and the per-component refinement and matching,
+come next; see DEVELOPERS.md ("The Python package").
 
 The executors need the ``dovetail`` package and pyarrow installed in the Python that Spark
 runs (``spark.pyspark.python`` / ``PYSPARK_PYTHON``). The config is sent to them as text, so
@@ -118,6 +122,78 @@ def candidate_pairs(left_df: "DataFrame", right_df: "DataFrame", config: Any) ->
     # passes' bits is their union.
     return pairs.groupBy("left_id", "right_id").agg(
         F.sum(F.expr("shiftleft(CAST(1 AS BIGINT), CAST(pass AS INT))")).alias("passes")
+    )
+
+
+PATTERN_SCHEMA = "pattern string, pairs double"
+"""The schema of :func:`pattern_counts`: the levels joined with ``,`` (``m`` = missing)."""
+
+
+def _split_sides(batch: pa.RecordBatch, lcols: List[str], rcols: List[str]):
+    """One partition's joined pairs as (left records, right records, left rows, right rows),
+    each record once: a record in several pairs is one row of its table."""
+    out = []
+    for prefix, cols in (("l__", lcols), ("r__", rcols)):
+        ids = batch.column(prefix + cols[0]).to_pylist()
+        at: dict = {}  # id -> its row in the side's table, in first-seen order
+        take: List[int] = []  # the batch row that gives each record
+        rows: List[int] = []  # per pair, its record's row
+        for i, x in enumerate(ids):
+            if x not in at:
+                at[x] = len(take)
+                take.append(i)
+            rows.append(at[x])
+        table = pa.Table.from_batches([batch]).select([prefix + c for c in cols]).take(take)
+        out.append((table.rename_columns(cols), rows))
+    (lt, lrows), (rt, rrows) = out
+    return lt, rt, lrows, rrows
+
+
+def pattern_counts(
+    left_df: "DataFrame", right_df: "DataFrame", pairs_df: "DataFrame", config: Any
+) -> "DataFrame":
+    """The agreement-pattern counts of the pairs ``pairs_df`` (``left_id``, ``right_id``, as
+    :func:`candidate_pairs` gives), compared on the executors: :data:`PATTERN_SCHEMA`, one
+    row per pattern seen. For the candidate pairs these equal a single-machine run's counts.
+    A field empty in a whole table (which a single-machine run leaves out) must be taken out
+    of the config first.
+    """
+    from pyspark.sql import functions as F
+
+    cj = config_text(config)
+    lcols, rcols = _dovetail.read_columns(None, cj)
+    left = left_df.select([F.col(c).cast("string").alias("l__" + c) for c in lcols])
+    right = right_df.select([F.col(c).cast("string").alias("r__" + c) for c in rcols])
+    joined = (
+        pairs_df.select("left_id", "right_id")
+        .join(left, F.col("left_id") == F.col("l__" + lcols[0]))
+        .join(right, F.col("right_id") == F.col("r__" + rcols[0]))
+    )
+
+    def run(batches: Iterator[pa.RecordBatch]) -> Iterator[pa.RecordBatch]:
+        from dovetail import _dovetail as native
+
+        for b in batches:
+            if b.num_rows == 0:
+                continue
+            lt, rt, lrows, rrows = _split_sides(b, lcols, rcols)
+            counts = native.pattern_counts(lt, rt, lrows, rrows, cj)
+            yield pa.RecordBatch.from_pydict(
+                {"pattern": [k for k, _ in counts], "pairs": [float(n) for _, n in counts]}
+            )
+
+    per_partition = joined.mapInArrow(run, PATTERN_SCHEMA)
+    return per_partition.groupBy("pattern").agg(F.sum("pairs").alias("pairs"))
+
+
+def local_pattern_counts(left: Any, right: Any, config: Any) -> dict:
+    """The single machine's pattern counts of the config's candidate pairs, {pattern: pairs}:
+    the reference :func:`pattern_counts` is tested against."""
+    from . import _config_args, _table_arg
+
+    path, cj = _config_args(config)
+    return dict(
+        _dovetail.local_pattern_counts(_table_arg(left, "left"), _table_arg(right, "right"), path, cj)
     )
 
 

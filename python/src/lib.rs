@@ -522,6 +522,9 @@ fn _dovetail(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(spark::block_keys, m)?)?;
     m.add_function(wrap_pyfunction!(spark::block_passes, m)?)?;
     m.add_function(wrap_pyfunction!(spark::candidate_pairs, m)?)?;
+    m.add_function(wrap_pyfunction!(spark::read_columns, m)?)?;
+    m.add_function(wrap_pyfunction!(spark::pattern_counts, m)?)?;
+    m.add_function(wrap_pyfunction!(spark::local_pattern_counts, m)?)?;
     m.add("__version__", env!("CARGO_PKG_VERSION"))?;
     Ok(())
 }

@@ -6,11 +6,16 @@
 //!   transforms), for Spark to join on;
 //! - [`block_passes`]: each pass's name and block cap;
 //! - [`candidate_pairs`]: the single-machine blocking's pairs, the reference the Spark join is
-//!   tested against.
+//!   tested against;
+//! - [`read_columns`]: the columns each table needs;
+//! - [`pattern_counts`]: one partition's pairs compared, as agreement-pattern counts (they
+//!   add across partitions); [`local_pattern_counts`]: the single machine's, the reference.
 
 use crate::{config_for, errors, frames};
 use arrow_array::{ArrayRef, Int16Array, Int64Array, RecordBatch, StringArray};
+use dovetail::block::Candidates;
 use dovetail::pipeline;
+use dovetail::records::Records;
 use pyo3::prelude::*;
 use std::path::PathBuf;
 use std::sync::Arc;
@@ -88,14 +93,13 @@ pub fn candidate_pairs(
     config_path: Option<PathBuf>,
     config_json: Option<&str>,
 ) -> PyResult<frames::Stream> {
-    let left = left.map(|x| frames::source(py, x, true)).transpose()?;
-    let right = right.map(|x| frames::source(py, x, false)).transpose()?;
-    let config = config_for(config_path, config_json, &left, &right).map_err(errors::to_py)?;
-    let batch = py
-        .detach(move || -> dovetail::Result<RecordBatch> {
-            let l = frames::table(left, &config, true)?;
-            let r = frames::table(right, &config, false)?;
-            let (records, cands) = pipeline::block_only(config, Some((l, r)))?;
+    let batch = local_blocking(
+        py,
+        left,
+        right,
+        config_path,
+        config_json,
+        |records, cands| {
             let lid: Vec<&str> = cands
                 .left
                 .iter()
@@ -114,7 +118,125 @@ pub fn candidate_pairs(
             ];
             RecordBatch::try_from_iter(columns)
                 .map_err(|e| dovetail::Error::input(format!("cannot build the pair table: {e}")))
-        })
-        .map_err(errors::to_py)?;
+        },
+    )?;
     Ok(frames::Stream::new(batch))
+}
+
+/// The single machine's blocking of the two tables (frames, paths, or the config's paths),
+/// then `then` on its records and pairs, on a thread without the GIL.
+fn local_blocking<T: Send>(
+    py: Python<'_>,
+    left: Option<&Bound<'_, PyAny>>,
+    right: Option<&Bound<'_, PyAny>>,
+    config_path: Option<PathBuf>,
+    config_json: Option<&str>,
+    then: impl FnOnce(Records, Candidates) -> dovetail::Result<T> + Send,
+) -> PyResult<T> {
+    let left = left.map(|x| frames::source(py, x, true)).transpose()?;
+    let right = right.map(|x| frames::source(py, x, false)).transpose()?;
+    let config = config_for(config_path, config_json, &left, &right).map_err(errors::to_py)?;
+    py.detach(move || {
+        let l = frames::table(left, &config, true)?;
+        let r = frames::table(right, &config, false)?;
+        let (records, cands) = pipeline::block_only(config, Some((l, r)))?;
+        then(records, cands)
+    })
+    .map_err(errors::to_py)
+}
+
+/// The columns each table needs (its id first): ([left], [right]).
+#[pyfunction]
+#[pyo3(signature = (config_path, config_json))]
+pub fn read_columns(
+    config_path: Option<PathBuf>,
+    config_json: Option<&str>,
+) -> PyResult<(Vec<String>, Vec<String>)> {
+    let placeholder = Some(frames::Source::Path(PathBuf::new()));
+    let config =
+        config_for(config_path, config_json, &placeholder, &placeholder).map_err(errors::to_py)?;
+    let side = |left: bool| -> PyResult<Vec<String>> {
+        let spec = pipeline::read_spec(&config, left).map_err(errors::to_py)?;
+        let mut cols = vec![spec.id];
+        for c in spec.columns.into_iter().chain(spec.optional) {
+            if !cols.contains(&c) {
+                cols.push(c);
+            }
+        }
+        Ok(cols)
+    };
+    Ok((side(true)?, side(false)?))
+}
+
+/// A pattern as a text key: its levels joined with `,`, `m` for a missing value.
+fn pattern_key(levels: &[u8]) -> String {
+    levels
+        .iter()
+        .map(|&l| {
+            if l == dovetail::compare::MISSING_LEVEL {
+                "m".to_string()
+            } else {
+                l.to_string()
+            }
+        })
+        .collect::<Vec<_>>()
+        .join(",")
+}
+
+fn keyed(counts: dovetail::compare::PatternCounts) -> Vec<(String, f64)> {
+    counts
+        .patterns
+        .iter()
+        .map(|p| pattern_key(p))
+        .zip(counts.counts)
+        .collect()
+}
+
+/// One partition's pairs compared: pair i is row `left_rows[i]` of `left` with row
+/// `right_rows[i]` of `right` (each table holding every record once); returns (pattern key,
+/// pairs) for each pattern seen.
+#[pyfunction]
+#[pyo3(signature = (left, right, left_rows, right_rows, config_json))]
+pub fn pattern_counts(
+    py: Python<'_>,
+    left: &Bound<'_, PyAny>,
+    right: &Bound<'_, PyAny>,
+    left_rows: Vec<u32>,
+    right_rows: Vec<u32>,
+    config_json: &str,
+) -> PyResult<Vec<(String, f64)>> {
+    let left = Some(frames::source(py, left, true)?);
+    let right = Some(frames::source(py, right, false)?);
+    let config = config_for(None, Some(config_json), &left, &right).map_err(errors::to_py)?;
+    py.detach(move || -> dovetail::Result<Vec<(String, f64)>> {
+        let l = frames::table(left, &config, true)?;
+        let r = frames::table(right, &config, false)?;
+        let counts = pipeline::pair_pattern_counts(&config, &l, &r, left_rows, right_rows)?;
+        Ok(keyed(counts))
+    })
+    .map_err(errors::to_py)
+}
+
+/// The single machine's pattern counts of the config's candidate pairs.
+#[pyfunction]
+#[pyo3(signature = (left, right, config_path, config_json))]
+pub fn local_pattern_counts(
+    py: Python<'_>,
+    left: Option<&Bound<'_, PyAny>>,
+    right: Option<&Bound<'_, PyAny>>,
+    config_path: Option<PathBuf>,
+    config_json: Option<&str>,
+) -> PyResult<Vec<(String, f64)>> {
+    local_blocking(
+        py,
+        left,
+        right,
+        config_path,
+        config_json,
+        |records, cands| {
+            Ok(keyed(
+                dovetail::compare::compare(&records, &cands).pattern_counts(),
+            ))
+        },
+    )
 }

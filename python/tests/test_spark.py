@@ -158,3 +158,47 @@ def test_spark_blocking_gives_the_single_machine_pairs(session):
 def test_spark_blocking_honours_the_cap(session):
     got, want = spark_and_local(session, sample_dict(max_block_pairs=2), 2, 3)
     assert got == want
+
+
+def counts_of_pairs(pairs: pa.Table, left: pa.Table, right: pa.Table, cfg) -> dict:
+    """Pattern counts of some pairs through the per-partition native piece, the records of
+    each side taken once, as a partition of joined pairs gives them."""
+    cj = config_text(cfg)
+    lcols, rcols = _dovetail.read_columns(None, cj)
+    d = pairs.to_pydict()
+    lpos = {x: i for i, x in enumerate(left.column(lcols[0]).to_pylist())}
+    rpos = {x: i for i, x in enumerate(right.column(rcols[0]).to_pylist())}
+    lids = sorted(set(d["left_id"]))
+    rids = sorted(set(d["right_id"]))
+    lt = left.select(lcols).take([lpos[x] for x in lids])
+    rt = right.select(rcols).take([rpos[x] for x in rids])
+    li = {x: i for i, x in enumerate(lids)}
+    ri = {x: i for i, x in enumerate(rids)}
+    rows_l = [li[x] for x in d["left_id"]]
+    rows_r = [ri[x] for x in d["right_id"]]
+    return dict(_dovetail.pattern_counts(lt, rt, rows_l, rows_r, cj))
+
+
+def test_pattern_counts_of_parts_add_up_to_the_single_machine_counts():
+    left, right = text_frame(SAMPLE_LEFT), text_frame(SAMPLE_RIGHT)
+    cfg = sample_dict()
+    want = spark.local_pattern_counts(left, right, cfg)
+    assert sum(want.values()) > 100 and len(want) > 10
+    pairs = spark.local_candidate_pairs(left, right, cfg)
+    half = pairs.num_rows // 3
+    total: dict = {}
+    for part in (pairs.slice(0, half), pairs.slice(half)):
+        for k, n in counts_of_pairs(part, left, right, cfg).items():
+            total[k] = total.get(k, 0.0) + n
+    assert total == want
+
+
+def test_spark_pattern_counts_equal_the_single_machine_counts(session):
+    read = session.read.option("header", True)
+    left_df = read.csv(str(SAMPLE_LEFT)).repartition(3)
+    right_df = read.csv(str(SAMPLE_RIGHT)).repartition(2)
+    cfg = sample_dict()
+    pairs = spark.candidate_pairs(left_df, right_df, cfg)
+    got = {r.pattern: r.pairs for r in spark.pattern_counts(left_df, right_df, pairs, cfg).collect()}
+    want = spark.local_pattern_counts(text_frame(SAMPLE_LEFT), text_frame(SAMPLE_RIGHT), cfg)
+    assert got == want
