@@ -506,6 +506,77 @@ pub fn pair_pattern_counts(
     Ok(compare::compare(&records, &cands).pattern_counts())
 }
 
+/// The fit's first step, EM over the agreement-pattern counts (`patterns`: levels and pairs,
+/// in any order, each pattern once), for tables of `n_left` and `n_right` records: the same
+/// call, on the same counts in the same order, as a single-machine run's first fit (its
+/// `plain_fit`), so a driver holding only the counts gets the same laws. Labelled pairs,
+/// `u_from = "random"` and clerical decisions need records, not counts: refused here.
+pub fn fit_from_counts(
+    config: &Config,
+    patterns: Vec<(Vec<u8>, f64)>,
+    n_left: usize,
+    n_right: usize,
+) -> Result<Fit> {
+    if config.model.labelled.is_some()
+        || config.model.u_from.as_deref() == Some("random")
+        || config.link.decisions.is_some()
+    {
+        return Err(Error::config(
+            "`model.labelled`, `model.u_from = \"random\"` and `link.decisions` need the records, not only the pattern counts; they are not available here yet",
+        ));
+    }
+    let empty = empty_table();
+    let records = records::build(&empty, &empty, &config.field, &config.key_columns)?;
+    let comparison = compare::compare(&records, &Candidates::default());
+    let levels = comparison.level_counts();
+    for (p, _) in &patterns {
+        let bad = p.len() != levels.len()
+            || p.iter()
+                .zip(&levels)
+                .any(|(&l, &n)| l != MISSING_LEVEL && l as usize >= n);
+        if bad {
+            return Err(Error::input(format!(
+                "pattern {p:?} does not fit the config's fields ({} fields with {levels:?} levels)",
+                levels.len()
+            )));
+        }
+    }
+    let mut patterns = patterns;
+    patterns.sort_by_key(|(p, _)| comparison.encode(p));
+    let total: f64 = patterns.iter().map(|(_, n)| n).sum();
+    let counts = PatternCounts {
+        levels,
+        patterns: patterns.iter().map(|(p, _)| p.clone()).collect(),
+        counts: patterns.iter().map(|&(_, n)| n).collect(),
+    };
+    if total <= 0.0 {
+        return Ok(model::null_fit(&counts.levels));
+    }
+    Ok(model::fit(
+        &counts,
+        &model::EmOptions {
+            max_iterations: config.model.max_iterations,
+            tolerance: config.model.tolerance,
+            p_hint: n_left.min(n_right) as f64 / total,
+            known: model::Known::default(),
+        },
+    ))
+}
+
+/// A table of no records, for the side a piece of a distributed run does not see.
+fn empty_table() -> Table {
+    Table {
+        path: PathBuf::new(),
+        ids: Texts::new(),
+        columns: Default::default(),
+        header: Vec::new(),
+        lines: Vec::new(),
+        bytes: 0,
+        sha256: String::new(),
+        place: "row",
+    }
+}
+
 /// One table's blocking keys (see [`side_keys`]).
 pub struct SideKeys {
     /// The records' ids, in row order.
@@ -520,16 +591,7 @@ pub struct SideKeys {
 /// order, with the passes; the other table is taken as empty. A sorted-neighbourhood pass is
 /// an error: its pairs come from an order over both tables, not from equal keys.
 pub fn side_keys(config: &Config, table: &Table, left: bool) -> Result<SideKeys> {
-    let empty = Table {
-        path: PathBuf::new(),
-        ids: Texts::new(),
-        columns: Default::default(),
-        header: Vec::new(),
-        lines: Vec::new(),
-        bytes: 0,
-        sha256: String::new(),
-        place: "row",
-    };
+    let empty = empty_table();
     let (l, r) = if left {
         (table, &empty)
     } else {

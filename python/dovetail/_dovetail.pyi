@@ -83,3 +83,10 @@ def local_pattern_counts(
     config_path: Optional[str],
     config_json: Optional[str],
 ) -> List[Tuple[str, float]]: ...
+def fit_counts(patterns: List[Tuple[str, float]], n_left: int, n_right: int, config_json: str) -> str: ...
+def local_plain_fit(
+    left: Optional[_Table],
+    right: Optional[_Table],
+    config_path: Optional[str],
+    config_json: Optional[str],
+) -> str: ...

@@ -13,8 +13,11 @@ Work in progress (issue 22). What is here is the blocking stage:
   with both records' needed columns, levels by the library's comparators), as
   agreement-pattern counts summed by Spark: the sufficient statistic of the fit.
 
-The fit from those counts on the driver, and the per-component refinement and matching,
-come next; see DEVELOPERS.md ("The Python package").
+* :func:`fit_counts` - the fit's first step (EM) on the driver from those counts alone,
+  the same laws as a single-machine run's first fit.
+
+The one-to-one refinement of the fit, the confidences and the matching per connected
+component come next; see DEVELOPERS.md ("The Python package").
 
 The executors need the ``dovetail`` package and pyarrow installed in the Python that Spark
 runs (``spark.pyspark.python`` / ``PYSPARK_PYTHON``). The config is sent to them as text, so
@@ -184,6 +187,31 @@ def pattern_counts(
 
     per_partition = joined.mapInArrow(run, PATTERN_SCHEMA)
     return per_partition.groupBy("pattern").agg(F.sum("pairs").alias("pairs"))
+
+
+def fit_counts(counts: Any, n_left: int, n_right: int, config: Any) -> dict:
+    """The fit's first step, EM over the pattern counts, on the driver: a dict of ``p``,
+    ``m``, ``u`` (per field, per level), ``m_missing``, ``u_missing``, ``loglik``,
+    ``iterations``, ``converged``, ``switched``. ``counts`` is :func:`pattern_counts`'s
+    DataFrame (collected: one row per pattern) or a dict {pattern: pairs}; ``n_left`` and
+    ``n_right`` are the tables' record counts. Equal to a single-machine run's first fit.
+    """
+    if isinstance(counts, Mapping):
+        items = [(str(k), float(v)) for k, v in counts.items()]
+    else:
+        items = [(r["pattern"], float(r["pairs"])) for r in counts.collect()]
+    return json.loads(_dovetail.fit_counts(items, int(n_left), int(n_right), config_text(config)))
+
+
+def local_plain_fit(left: Any, right: Any, config: Any) -> dict:
+    """The single machine's first fit (before the one-to-one refinement), as
+    :func:`fit_counts` gives it: the reference it is tested against."""
+    from . import _config_args, _table_arg
+
+    path, cj = _config_args(config)
+    return json.loads(
+        _dovetail.local_plain_fit(_table_arg(left, "left"), _table_arg(right, "right"), path, cj)
+    )
 
 
 def local_pattern_counts(left: Any, right: Any, config: Any) -> dict:

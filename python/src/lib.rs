@@ -525,6 +525,8 @@ fn _dovetail(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(spark::read_columns, m)?)?;
     m.add_function(wrap_pyfunction!(spark::pattern_counts, m)?)?;
     m.add_function(wrap_pyfunction!(spark::local_pattern_counts, m)?)?;
+    m.add_function(wrap_pyfunction!(spark::fit_counts, m)?)?;
+    m.add_function(wrap_pyfunction!(spark::local_plain_fit, m)?)?;
     m.add("__version__", env!("CARGO_PKG_VERSION"))?;
     Ok(())
 }

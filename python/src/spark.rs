@@ -14,6 +14,7 @@
 use crate::{config_for, errors, frames};
 use arrow_array::{ArrayRef, Int16Array, Int64Array, RecordBatch, StringArray};
 use dovetail::block::Candidates;
+use dovetail::io::Table;
 use dovetail::pipeline;
 use dovetail::records::Records;
 use pyo3::prelude::*;
@@ -133,14 +134,29 @@ fn local_blocking<T: Send>(
     config_json: Option<&str>,
     then: impl FnOnce(Records, Candidates) -> dovetail::Result<T> + Send,
 ) -> PyResult<T> {
+    local_tables(py, left, right, config_path, config_json, |config, l, r| {
+        let (records, cands) = pipeline::block_only(config, Some((l, r)))?;
+        then(records, cands)
+    })
+}
+
+/// The two tables (frames, paths, or the config's paths) read as the CLI reads them, then
+/// `then` on the config and the tables, on a thread without the GIL.
+fn local_tables<T: Send>(
+    py: Python<'_>,
+    left: Option<&Bound<'_, PyAny>>,
+    right: Option<&Bound<'_, PyAny>>,
+    config_path: Option<PathBuf>,
+    config_json: Option<&str>,
+    then: impl FnOnce(dovetail::config::Config, Table, Table) -> dovetail::Result<T> + Send,
+) -> PyResult<T> {
     let left = left.map(|x| frames::source(py, x, true)).transpose()?;
     let right = right.map(|x| frames::source(py, x, false)).transpose()?;
     let config = config_for(config_path, config_json, &left, &right).map_err(errors::to_py)?;
     py.detach(move || {
         let l = frames::table(left, &config, true)?;
         let r = frames::table(right, &config, false)?;
-        let (records, cands) = pipeline::block_only(config, Some((l, r)))?;
-        then(records, cands)
+        then(config, l, r)
     })
     .map_err(errors::to_py)
 }
@@ -239,4 +255,62 @@ pub fn local_pattern_counts(
             ))
         },
     )
+}
+
+/// A pattern key of [`pattern_key`] back as levels.
+fn levels_of_key(key: &str) -> dovetail::Result<Vec<u8>> {
+    key.split(',')
+        .map(|x| match x {
+            "m" => Ok(dovetail::compare::MISSING_LEVEL),
+            x => x
+                .parse::<u8>()
+                .map_err(|_| dovetail::Error::input(format!("`{key}` is not a pattern key"))),
+        })
+        .collect()
+}
+
+/// The fit's first step (EM) on the driver from the summed pattern counts, for tables of
+/// `n_left` and `n_right` records: the fitted laws as JSON (p, m, u, missing shares,
+/// log-likelihood, iterations).
+#[pyfunction]
+#[pyo3(signature = (patterns, n_left, n_right, config_json))]
+pub fn fit_counts(
+    py: Python<'_>,
+    patterns: Vec<(String, f64)>,
+    n_left: usize,
+    n_right: usize,
+    config_json: &str,
+) -> PyResult<String> {
+    let placeholder = Some(frames::Source::Path(PathBuf::new()));
+    let config =
+        config_for(None, Some(config_json), &placeholder, &placeholder).map_err(errors::to_py)?;
+    py.detach(move || -> dovetail::Result<String> {
+        let patterns = patterns
+            .into_iter()
+            .map(|(k, n)| Ok((levels_of_key(&k)?, n)))
+            .collect::<dovetail::Result<Vec<_>>>()?;
+        let fit = pipeline::fit_from_counts(&config, patterns, n_left, n_right)?;
+        serde_json::to_string(&fit)
+            .map_err(|e| dovetail::Error::input(format!("cannot write the fit: {e}")))
+    })
+    .map_err(errors::to_py)
+}
+
+/// The single machine's first fit (`plain_fit`, before the one-to-one refinement) as JSON:
+/// the reference of [`fit_counts`].
+#[pyfunction]
+#[pyo3(signature = (left, right, config_path, config_json))]
+pub fn local_plain_fit(
+    py: Python<'_>,
+    left: Option<&Bound<'_, PyAny>>,
+    right: Option<&Bound<'_, PyAny>>,
+    config_path: Option<PathBuf>,
+    config_json: Option<&str>,
+) -> PyResult<String> {
+    local_tables(py, left, right, config_path, config_json, |config, l, r| {
+        let budget = dovetail::budget::Budget::Off;
+        let prep = pipeline::prepare_given(config, &pipeline::Silent, &budget, Some((l, r)))?;
+        serde_json::to_string(&prep.plain_fit)
+            .map_err(|e| dovetail::Error::input(format!("cannot write the fit: {e}")))
+    })
 }

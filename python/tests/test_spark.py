@@ -133,12 +133,19 @@ def session():
     s.stop()
 
 
-def spark_and_local(session, cfg, left_parts: int, right_parts: int):
-    """The Spark blocking's pairs (tables read by Spark, split into partitions so that keys
-    and joins cross them) and the single machine's."""
+def sample_frames(session, left_parts: int, right_parts: int):
+    """The sample tables read by Spark, split into partitions so that keys and joins cross
+    them."""
     read = session.read.option("header", True)
-    left_df = read.csv(str(SAMPLE_LEFT)).repartition(left_parts)
-    right_df = read.csv(str(SAMPLE_RIGHT)).repartition(right_parts)
+    return (
+        read.csv(str(SAMPLE_LEFT)).repartition(left_parts),
+        read.csv(str(SAMPLE_RIGHT)).repartition(right_parts),
+    )
+
+
+def spark_and_local(session, cfg, left_parts: int, right_parts: int):
+    """The Spark blocking's pairs and the single machine's."""
+    left_df, right_df = sample_frames(session, left_parts, right_parts)
     got = {
         (r.left_id, r.right_id, int(r.passes))
         for r in spark.candidate_pairs(left_df, right_df, cfg).collect()
@@ -194,11 +201,35 @@ def test_pattern_counts_of_parts_add_up_to_the_single_machine_counts():
 
 
 def test_spark_pattern_counts_equal_the_single_machine_counts(session):
-    read = session.read.option("header", True)
-    left_df = read.csv(str(SAMPLE_LEFT)).repartition(3)
-    right_df = read.csv(str(SAMPLE_RIGHT)).repartition(2)
+    left_df, right_df = sample_frames(session, 3, 2)
     cfg = sample_dict()
     pairs = spark.candidate_pairs(left_df, right_df, cfg)
     got = {r.pattern: r.pairs for r in spark.pattern_counts(left_df, right_df, pairs, cfg).collect()}
     want = spark.local_pattern_counts(text_frame(SAMPLE_LEFT), text_frame(SAMPLE_RIGHT), cfg)
+    assert got == want
+
+
+def test_the_fit_from_counts_alone_is_the_single_machines_first_fit():
+    left, right = text_frame(SAMPLE_LEFT), text_frame(SAMPLE_RIGHT)
+    cfg = sample_dict()
+    counts = spark.local_pattern_counts(left, right, cfg)
+    want = spark.local_plain_fit(left, right, cfg)
+    assert 0.0 < want["p"] < 1.0 and want["iterations"] > 1
+    # In any order: the driver sorts the patterns as one machine does.
+    shuffled = dict(sorted(counts.items(), key=lambda kv: (-kv[1], kv[0])))
+    assert spark.fit_counts(shuffled, left.num_rows, right.num_rows, cfg) == want
+
+
+def test_a_pattern_that_does_not_fit_the_config_is_an_error():
+    with pytest.raises(_dovetail.InputError, match="does not fit"):
+        spark.fit_counts({"0,1": 5.0}, 10, 10, sample_dict())
+
+
+def test_spark_fit_equals_the_single_machine_first_fit(session):
+    left_df, right_df = sample_frames(session, 3, 2)
+    cfg = sample_dict()
+    pairs = spark.candidate_pairs(left_df, right_df, cfg)
+    counts = spark.pattern_counts(left_df, right_df, pairs, cfg)
+    got = spark.fit_counts(counts, left_df.count(), right_df.count(), cfg)
+    want = spark.local_plain_fit(text_frame(SAMPLE_LEFT), text_frame(SAMPLE_RIGHT), cfg)
     assert got == want
