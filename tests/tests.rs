@@ -11,6 +11,8 @@ mod bad_input;
 mod codings;
 #[path = "it/crash_safety.rs"]
 mod crash_safety;
+#[path = "it/distributed.rs"]
+mod distributed;
 #[path = "it/getting_started.rs"]
 mod getting_started;
 #[path = "it/honesty.rs"]
