@@ -16,6 +16,9 @@ Work in progress (issue 22). What is here is the blocking stage:
 * :func:`fit_counts` - the fit's first step (EM) on the driver from those counts alone,
   the same laws as a single-machine run's first fit.
 
+* :func:`components` - the connected components of the pair graph, by label propagation,
+  for the per-component stages.
+
 The one-to-one refinement of the fit, the confidences and the matching per connected
 component come next; see DEVELOPERS.md ("The Python package").
 
@@ -212,6 +215,49 @@ def local_plain_fit(left: Any, right: Any, config: Any) -> dict:
     return json.loads(
         _dovetail.local_plain_fit(_table_arg(left, "left"), _table_arg(right, "right"), path, cj)
     )
+
+
+def components(pairs_df: "DataFrame", *, max_rounds: int = 200) -> "DataFrame":
+    """Each pair's connected component in the graph whose nodes are the records and whose
+    edges are the pairs: ``left_id``, ``right_id`` and ``component`` (the least node name of
+    the component, a left record as ``L<id>``, a right one as ``R<id>``).
+
+    Label propagation: every node starts with its own name and takes, round after round, the
+    least label among itself and its neighbours, until no label changes (rounds: the
+    component's diameter plus one). Each round's labels are checkpointed, so the plan does not
+    grow with the rounds. More than ``max_rounds`` rounds is an error (a chain of records that
+    long is not a blocking graph's).
+    """
+    from pyspark.sql import functions as F
+
+    e = pairs_df.select(
+        F.concat(F.lit("L"), F.col("left_id")).alias("a"),
+        F.concat(F.lit("R"), F.col("right_id")).alias("b"),
+    )
+    edges = e.union(e.select(F.col("b").alias("a"), F.col("a").alias("b"))).localCheckpoint()
+    labels = edges.select(F.col("a").alias("node")).distinct().withColumn("c", F.col("node"))
+    labels = labels.localCheckpoint()
+    for _ in range(max_rounds):
+        heard = edges.join(labels.withColumnRenamed("node", "b"), "b").select(
+            F.col("a").alias("node"), "c"
+        )
+        new = labels.union(heard).groupBy("node").agg(F.min("c").alias("c")).localCheckpoint()
+        changed = (
+            new.alias("n")
+            .join(labels.alias("o"), "node")
+            .where(F.col("n.c") != F.col("o.c"))
+            .limit(1)
+            .count()
+        )
+        labels = new
+        if changed == 0:
+            break
+    else:
+        raise RuntimeError(f"components: labels still changing after {max_rounds} rounds")
+    left_label = labels.select(
+        F.expr("substring(node, 2)").alias("left_id"), F.col("c").alias("component")
+    ).where(F.col("node").startswith("L"))
+    return pairs_df.select("left_id", "right_id").join(left_label, "left_id")
 
 
 def local_pattern_counts(left: Any, right: Any, config: Any) -> dict:

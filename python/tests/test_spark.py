@@ -233,3 +233,43 @@ def test_spark_fit_equals_the_single_machine_first_fit(session):
     got = spark.fit_counts(counts, left_df.count(), right_df.count(), cfg)
     want = spark.local_plain_fit(text_frame(SAMPLE_LEFT), text_frame(SAMPLE_RIGHT), cfg)
     assert got == want
+
+
+def union_find_components(pairs) -> set:
+    """The components of a pair list as sets of pairs (a plain union-find: the reference)."""
+    parent: dict = {}
+
+    def find(x):
+        while parent.setdefault(x, x) != x:
+            parent[x] = parent[parent[x]]
+            x = parent[x]
+        return x
+
+    for a, b in pairs:
+        ra, rb = find(("L", a)), find(("R", b))
+        if ra != rb:
+            parent[ra] = rb
+    groups: dict = {}
+    for a, b in pairs:
+        groups.setdefault(find(("L", a)), set()).add((a, b))
+    return {frozenset(g) for g in groups.values()}
+
+
+def test_spark_components_are_the_graphs_components(session):
+    left_df, right_df = sample_frames(session, 3, 2)
+    cfg = sample_dict()
+    pairs = spark.candidate_pairs(left_df, right_df, cfg)
+    rows = spark.components(pairs).collect()
+    got: dict = {}
+    for r in rows:
+        got.setdefault(r.component, set()).add((r.left_id, r.right_id))
+    local = spark.local_candidate_pairs(text_frame(SAMPLE_LEFT), text_frame(SAMPLE_RIGHT), cfg)
+    d = local.to_pydict()
+    want = union_find_components(list(zip(d["left_id"], d["right_id"])))
+    assert len(rows) == local.num_rows
+    assert any(len(g) > 2 for g in want), "some component joins several pairs"
+    assert {frozenset(g) for g in got.values()} == want
+    # The label is the least node name of its component.
+    for label, g in got.items():
+        names = {"L" + a for a, _ in g} | {"R" + b for _, b in g}
+        assert label == min(names)
