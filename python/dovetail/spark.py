@@ -94,16 +94,50 @@ def passes(config: Any) -> List[Tuple[str, int]]:
     return [(n, int(c)) for n, c in _dovetail.block_passes(None, config_text(config))]
 
 
-def candidate_pairs(left_df: "DataFrame", right_df: "DataFrame", config: Any) -> "DataFrame":
+def check_tables(left_df: "DataFrame", right_df: "DataFrame", config: Any) -> None:
+    """What one machine checks of a whole table, which no partition can see: every id present
+    and unique (``InputError`` naming the id), and no needed column empty in every row
+    (``ConfigError``: a single-machine run leaves such a field out, with a warning; here take
+    it out of the config). Two Spark aggregations per table.
+    """
+    from pyspark.sql import functions as F
+
+    from . import ConfigError, InputError
+
+    lcols, rcols = _dovetail.read_columns(None, config_text(config))
+    for side, df, cols in (("left", left_df, lcols), ("right", right_df, rcols)):
+        id_col = F.trim(F.col(cols[0]).cast("string"))
+        if df.where(id_col.isNull() | (id_col == "")).limit(1).count():
+            raise InputError(f"{side} table: empty id in column `{cols[0]}`")
+        dup = df.groupBy(id_col.alias("id")).count().where(F.col("count") > 1).limit(1).collect()
+        if dup:
+            raise InputError(f"{side} table: duplicate id `{dup[0]['id']}` in column `{cols[0]}`")
+        longest = df.agg(
+            *[F.max(F.length(F.trim(F.col(c).cast("string")))).alias(c) for c in cols[1:]]
+        ).collect()[0]
+        empty = [c for c in cols[1:] if not longest[c]]
+        if empty:
+            raise ConfigError(
+                f"{side} table: column `{empty[0]}` is empty in every row; a single-machine "
+                "run leaves its field out, with a warning: take it out of the config for Spark"
+            )
+
+
+def candidate_pairs(
+    left_df: "DataFrame", right_df: "DataFrame", config: Any, *, check: bool = True
+) -> "DataFrame":
     """The candidate pairs of the config's blocking, by Spark joins on the library's keys.
 
     Returns ``left_id``, ``right_id`` and ``passes`` (bit p set when pass p found the pair),
     one row per pair: the same pairs and masks as a single-machine run. Per pass, a block
     (records sharing a key) whose left x right records exceed the pass's ``max_block_pairs``
     is dropped, as on one machine. Sorted-neighbourhood passes (``window``) are refused.
+    With ``check``, the tables are first checked as a whole (:func:`check_tables`).
     """
     from pyspark.sql import functions as F
 
+    if check:
+        check_tables(left_df, right_df, config)
     cj = config_text(config)
     spark = left_df.sparkSession
     caps = spark.createDataFrame(

@@ -273,3 +273,23 @@ def test_spark_components_are_the_graphs_components(session):
     for label, g in got.items():
         names = {"L" + a for a, _ in g} | {"R" + b for _, b in g}
         assert label == min(names)
+
+
+def test_spark_checks_the_whole_tables(session):
+    from pyspark.sql import functions as F
+
+    left_df, right_df = sample_frames(session, 2, 2)
+    cfg = sample_dict()
+    # A duplicate id across partitions, which no partition sees alone.
+    doubled = left_df.union(left_df.limit(1)).repartition(3)
+    with pytest.raises(_dovetail.InputError, match="left table: duplicate id"):
+        spark.candidate_pairs(doubled, right_df, cfg)
+    first_right = right_df.first()["rec_id"]
+    blank = right_df.withColumn(
+        "rec_id", F.when(F.col("rec_id") == F.lit(first_right), F.lit(" ")).otherwise(F.col("rec_id"))
+    )
+    with pytest.raises(_dovetail.InputError, match="right table: empty id"):
+        spark.candidate_pairs(left_df, blank, cfg)
+    no_phone = left_df.withColumn("phone", F.lit(None).cast("string"))
+    with pytest.raises(_dovetail.ConfigError, match="column `phone` is empty in every row"):
+        spark.candidate_pairs(no_phone, right_df, cfg)
