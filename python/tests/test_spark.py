@@ -125,6 +125,7 @@ def session():
         SparkSession.builder.master("local[2]")
         .appName("dovetail-tests")
         .config("spark.ui.enabled", "false")
+        .config("spark.ui.showConsoleProgress", "false")
         .config("spark.sql.shuffle.partitions", "5")
         .getOrCreate()
     )
