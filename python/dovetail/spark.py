@@ -172,19 +172,19 @@ PATTERN_SCHEMA = "pattern string, pairs double"
 def _split_sides(batch: pa.RecordBatch, lcols: List[str], rcols: List[str]):
     """One partition's joined pairs as (left records, right records, left rows, right rows),
     each record once: a record in several pairs is one row of its table."""
+    import pyarrow.compute as pc
+
+    table = pa.Table.from_batches([batch])
     out = []
     for prefix, cols in (("l__", lcols), ("r__", rcols)):
-        ids = batch.column(prefix + cols[0]).to_pylist()
-        at: dict = {}  # id -> its row in the side's table, in first-seen order
-        take: List[int] = []  # the batch row that gives each record
-        rows: List[int] = []  # per pair, its record's row
-        for i, x in enumerate(ids):
-            if x not in at:
-                at[x] = len(take)
-                take.append(i)
-            rows.append(at[x])
-        table = pa.Table.from_batches([batch]).select([prefix + c for c in cols]).take(take)
-        out.append((table.rename_columns(cols), rows))
+        ids = table.column(prefix + cols[0])
+        # The records in first-seen order; per pair its record's row; per record the first
+        # batch row holding it (index_in gives the first match).
+        uniq = pc.unique(ids)
+        rows = pc.index_in(ids, value_set=uniq).to_pylist()
+        first = pc.index_in(uniq, value_set=ids)
+        side = table.select([prefix + c for c in cols]).take(first)
+        out.append((side.rename_columns(cols), rows))
     (lt, lrows), (rt, rrows) = out
     return lt, rt, lrows, rrows
 
