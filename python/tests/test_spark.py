@@ -294,3 +294,36 @@ def test_spark_checks_the_whole_tables(session):
     no_phone = left_df.withColumn("phone", F.lit(None).cast("string"))
     with pytest.raises(_dovetail.ConfigError, match="column `phone` is empty in every row"):
         spark.candidate_pairs(no_phone, right_df, cfg)
+
+
+def test_the_spark_job_writes_pairs_counts_and_fit(session, tmp_path):
+    import json as _json
+
+    import pyarrow.parquet as pq
+
+    from dovetail import spark_job
+
+    left, right = text_frame(SAMPLE_LEFT), text_frame(SAMPLE_RIGHT)
+    pq.write_table(left, tmp_path / "left.parquet")
+    pq.write_table(right, tmp_path / "right.parquet")
+    out = tmp_path / "run"
+    code = spark_job.main(
+        ["--left", str(tmp_path / "left.parquet"), "--right", str(tmp_path / "right.parquet"),
+         "--config", str(SAMPLE_CONFIG), "--out", str(out)]
+    )
+    assert code == 0
+    assert sorted(p.name for p in out.iterdir()) == ["candidate_pairs", "fit.json", "pattern_counts"]
+    assert [p.name for p in tmp_path.iterdir() if p.name.startswith(".")] == [], "no work folder left"
+    pairs = pq.read_table(out / "candidate_pairs")
+    cfg = sample_dict()
+    want = pair_set(spark.local_candidate_pairs(left, right, cfg))
+    got = set(zip(*(pairs.column(c).to_pylist() for c in ("left_id", "right_id", "passes"))))
+    assert got == want
+    summary = _json.loads((out / "fit.json").read_text())
+    assert summary["candidate_pairs"] == len(want)
+    assert summary["first_fit"] == spark.local_plain_fit(left, right, cfg)
+    # A second run into the same, now full, folder is refused and changes nothing.
+    assert spark_job.main(
+        ["--left", str(tmp_path / "left.parquet"), "--right", str(tmp_path / "right.parquet"),
+         "--config", str(SAMPLE_CONFIG), "--out", str(out)]
+    ) == 2
