@@ -489,6 +489,29 @@ pub fn pair_pattern_counts(
     left: Vec<u32>,
     right: Vec<u32>,
 ) -> Result<PatternCounts> {
+    Ok(pair_comparison(config, left_table, right_table, left, right)?.pattern_counts())
+}
+
+/// The pattern code of each of some pairs (as [`pair_pattern_counts`] takes them): a code
+/// depends only on the config's fields, so codes from different pieces of a distributed run
+/// compare ([`crate::compare::Comparison::levels_of`] gives the levels back).
+pub fn pair_codes(
+    config: &Config,
+    left_table: &Table,
+    right_table: &Table,
+    left: Vec<u32>,
+    right: Vec<u32>,
+) -> Result<Vec<u64>> {
+    Ok(pair_comparison(config, left_table, right_table, left, right)?.codes)
+}
+
+fn pair_comparison(
+    config: &Config,
+    left_table: &Table,
+    right_table: &Table,
+    left: Vec<u32>,
+    right: Vec<u32>,
+) -> Result<compare::Comparison> {
     let records = records::build(left_table, right_table, &config.field, &config.key_columns)?;
     let (nl, nr) = (records.n_left() as u32, records.n_right() as u32);
     if let Some(i) = (0..left.len()).find(|&i| left[i] >= nl || right[i] >= nr) {
@@ -503,7 +526,34 @@ pub fn pair_pattern_counts(
         right,
         passes,
     };
-    Ok(compare::compare(&records, &cands).pattern_counts())
+    Ok(compare::compare(&records, &cands))
+}
+
+/// The number of agreement levels of each of the config's fields.
+pub fn field_levels(config: &Config) -> Result<Vec<usize>> {
+    let empty = empty_table();
+    let records = records::build(&empty, &empty, &config.field, &config.key_columns)?;
+    Ok(compare::compare(&records, &Candidates::default()).level_counts())
+}
+
+/// The levels of each field of each pattern code of the config's fields (an error names a
+/// code that does not fit them).
+pub fn code_levels(config: &Config, codes: &[u64]) -> Result<Vec<Vec<u8>>> {
+    let empty = empty_table();
+    let records = records::build(&empty, &empty, &config.field, &config.key_columns)?;
+    let comparison = compare::compare(&records, &Candidates::default());
+    codes
+        .iter()
+        .map(|&code| {
+            let levels = comparison.levels_of(code);
+            if comparison.encode(&levels) != code {
+                return Err(Error::input(format!(
+                    "{code} is not a pattern code of the config's fields"
+                )));
+            }
+            Ok(levels)
+        })
+        .collect()
 }
 
 /// The fit's first step, EM over the agreement-pattern counts (`patterns`: levels and pairs,

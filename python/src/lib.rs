@@ -15,6 +15,7 @@ mod errors;
 mod frames;
 mod run;
 mod spark;
+mod spark_fit;
 
 use dovetail::budget::Budget;
 use dovetail::config::Config;
@@ -527,6 +528,11 @@ fn _dovetail(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(spark::local_pattern_counts, m)?)?;
     m.add_function(wrap_pyfunction!(spark::fit_counts, m)?)?;
     m.add_function(wrap_pyfunction!(spark::local_plain_fit, m)?)?;
+    m.add_class::<spark_fit::Refiner>()?;
+    m.add_function(wrap_pyfunction!(spark_fit::piece_round_a, m)?)?;
+    m.add_function(wrap_pyfunction!(spark_fit::piece_round_b, m)?)?;
+    m.add_function(wrap_pyfunction!(spark_fit::piece_finish, m)?)?;
+    m.add_function(wrap_pyfunction!(spark_fit::pair_codes, m)?)?;
     m.add("__version__", env!("CARGO_PKG_VERSION"))?;
     Ok(())
 }

@@ -221,14 +221,28 @@ pub fn pattern_counts(
     right_rows: Vec<u32>,
     config_json: &str,
 ) -> PyResult<Vec<(String, f64)>> {
+    partition_tables(py, left, right, config_json, move |config, l, r| {
+        let counts = pipeline::pair_pattern_counts(config, l, r, left_rows, right_rows)?;
+        Ok(keyed(counts))
+    })
+}
+
+/// One partition's two tables (frames) read as tables of the config given as JSON, then
+/// `then` on them, on a thread without the GIL.
+pub fn partition_tables<T: Send>(
+    py: Python<'_>,
+    left: &Bound<'_, PyAny>,
+    right: &Bound<'_, PyAny>,
+    config_json: &str,
+    then: impl FnOnce(&dovetail::config::Config, &Table, &Table) -> dovetail::Result<T> + Send,
+) -> PyResult<T> {
     let left = Some(frames::source(py, left, true)?);
     let right = Some(frames::source(py, right, false)?);
     let config = config_for(None, Some(config_json), &left, &right).map_err(errors::to_py)?;
-    py.detach(move || -> dovetail::Result<Vec<(String, f64)>> {
+    py.detach(move || {
         let l = frames::table(left, &config, true)?;
         let r = frames::table(right, &config, false)?;
-        let counts = pipeline::pair_pattern_counts(&config, &l, &r, left_rows, right_rows)?;
-        Ok(keyed(counts))
+        then(&config, &l, &r)
     })
     .map_err(errors::to_py)
 }

@@ -436,21 +436,33 @@ impl Strata {
 
     /// Refits every stratum from the pairs' link probabilities `p`, towards `pooled`.
     pub fn refit(&mut self, pp: &PairPatterns, p: &[f64], pooled: &Fit) {
-        let np = pp.patterns.len();
-        let mut sums = vec![(0.0f64, 0.0f64); self.masks.len() * np];
-        for (i, &j) in pp.of_pair.iter().enumerate() {
-            let e = &mut sums[self.of_pair[i] as usize * np + j as usize];
-            e.0 += 1.0;
-            e.1 += p[i];
-        }
+        let sums = stratum_sums(
+            &pp.of_pair,
+            &self.of_pair,
+            p,
+            self.masks.len(),
+            pp.patterns.len(),
+        );
+        self.refit_from_sums(&pp.patterns, &pp.levels, &sums, pooled);
+    }
+
+    /// [`Strata::refit`] from [`stratum_sums`] (summed over pieces of the pairs, if split).
+    pub fn refit_from_sums(
+        &mut self,
+        patterns: &[Vec<u8>],
+        levels: &[usize],
+        sums: &[(f64, f64)],
+        pooled: &Fit,
+    ) {
+        let np = patterns.len();
         self.fits = sums
             .chunks(np.max(1))
             .take(self.masks.len())
             .map(|per| {
                 let seen: Vec<usize> = (0..per.len()).filter(|&j| per[j].0 > 0.0).collect();
                 let pc = PatternCounts {
-                    levels: pp.levels.clone(),
-                    patterns: seen.iter().map(|&j| pp.patterns[j].clone()).collect(),
+                    levels: levels.to_vec(),
+                    patterns: seen.iter().map(|&j| patterns[j].clone()).collect(),
                     counts: seen.iter().map(|&j| per[j].0).collect(),
                 };
                 let gamma: Vec<f64> = seen.iter().map(|&j| per[j].1 / per[j].0).collect();
@@ -463,6 +475,25 @@ impl Strata {
     pub fn stratum_of(&self, i: usize) -> usize {
         self.of_pair[i] as usize
     }
+}
+
+/// Per (stratum, pattern), the pairs and their link probabilities' sum (at
+/// `stratum * patterns + pattern`), for [`Strata::refit_from_sums`]; pair i has pattern
+/// `pattern_of[i]` and stratum `stratum_of[i]`.
+pub fn stratum_sums(
+    pattern_of: &[u32],
+    stratum_of: &[u16],
+    p: &[f64],
+    strata: usize,
+    patterns: usize,
+) -> Vec<(f64, f64)> {
+    let mut sums = vec![(0.0f64, 0.0f64); strata * patterns];
+    for (i, &j) in pattern_of.iter().enumerate() {
+        let e = &mut sums[stratum_of[i] as usize * patterns + j as usize];
+        e.0 += 1.0;
+        e.1 += p[i];
+    }
+    sums
 }
 
 /// Each candidate pair's agreement pattern as an index into the patterns of a
@@ -557,13 +588,23 @@ pub fn leave_one_out_m(
     stratum_of: impl Fn(usize) -> usize + Sync,
     p: &[f64],
 ) -> Vec<Vec<Vec<f64>>> {
-    use rayon::prelude::*;
-    let levels = &pp.levels;
     let weights: Vec<Vec<Vec<f64>>> = fits.iter().map(|f| f.level_weights()).collect();
-    // Flat bins: one run of LOO_BINS per (fit, field, level), at `slot[g][k] + l`.
-    let mut slot: Vec<Vec<usize>> = Vec::with_capacity(fits.len());
+    let bins = leave_one_out_bins(
+        &pp.patterns,
+        &pp.levels,
+        &weights,
+        &pp.of_pair,
+        stratum_of,
+        p,
+    );
+    leave_one_out_finish(&bins, &pp.levels, fits)
+}
+
+/// Where each (fit, field, level)'s run of bins starts, and how many runs there are.
+fn loo_slots(levels: &[usize], fits: usize) -> (Vec<Vec<usize>>, usize) {
+    let mut slot: Vec<Vec<usize>> = Vec::with_capacity(fits);
     let mut n_slots = 0usize;
-    for _ in fits {
+    for _ in 0..fits {
         slot.push(
             levels
                 .iter()
@@ -574,12 +615,31 @@ pub fn leave_one_out_m(
                 .collect(),
         );
     }
+    (slot, n_slots)
+}
+
+/// The first half of [`leave_one_out_m`]: pair counts per bin of the leave-one-field-out log
+/// odds, per (fit, field, level). Whole counts (as f64, exact below 2^53), so the bins of
+/// disjoint sets of pairs add up to those of their union in any order. `weights` are the
+/// fits' [`Fit::level_weights`]; pair i has pattern `pattern_of[i]` (into `patterns`) and fit
+/// `stratum_of(i)`.
+pub fn leave_one_out_bins(
+    patterns: &[Vec<u8>],
+    levels: &[usize],
+    weights: &[Vec<Vec<f64>>],
+    pattern_of: &[u32],
+    stratum_of: impl Fn(usize) -> usize + Sync,
+    p: &[f64],
+) -> Vec<f64> {
+    use rayon::prelude::*;
+    // Flat bins: one run of LOO_BINS per (fit, field, level), at `slot[g][k] + l`.
+    let (slot, n_slots) = loo_slots(levels, weights.len());
     // Per (fit, pattern): the (bin run offset, field weight) of each observed field.
-    let np = pp.patterns.len();
-    let cell: Vec<Vec<(usize, f64)>> = (0..fits.len() * np)
+    let np = patterns.len();
+    let cell: Vec<Vec<(usize, f64)>> = (0..weights.len() * np)
         .map(|c| {
             let (g, j) = (c / np, c % np);
-            pp.patterns[j]
+            patterns[j]
                 .iter()
                 .enumerate()
                 .filter(|(_, &l)| l != MISSING_LEVEL)
@@ -596,7 +656,7 @@ pub fn leave_one_out_m(
     let per_width = 1.0 / LOO_BIN_WIDTH;
     // Pair counts per bin of the leave-one-out log odds, in a few large chunks (whole
     // counts: the sum over chunks does not depend on their order).
-    let n = pp.len();
+    let n = pattern_of.len();
     let chunk = n.div_ceil(8).max(1);
     let partial: Vec<Vec<u32>> = (0..n.div_ceil(chunk))
         .into_par_iter()
@@ -605,7 +665,7 @@ pub fn leave_one_out_m(
             for i in c * chunk..((c + 1) * chunk).min(n) {
                 let q = p[i].clamp(1e-12, 1.0 - 1e-12);
                 let logit = (q / (1.0 - q)).ln();
-                for &(off, w) in &cell[stratum_of(i) * np + pp.of_pair[i] as usize] {
+                for &(off, w) in &cell[stratum_of(i) * np + pattern_of[i] as usize] {
                     let b =
                         ((logit - w) * per_width + half).clamp(0.0, LOO_BINS as f64 - 1.0) as usize;
                     bins[off + b] += 1;
@@ -620,6 +680,15 @@ pub fn leave_one_out_m(
             *x += y as f64;
         }
     }
+    bins
+}
+
+/// The second half of [`leave_one_out_m`]: per fit, per field, per level, the m estimate
+/// from the bins of [`leave_one_out_bins`] (summed over pieces of the pairs, if split) and
+/// each fit's u.
+pub fn leave_one_out_finish(bins: &[f64], levels: &[usize], fits: &[&Fit]) -> Vec<Vec<Vec<f64>>> {
+    let (slot, _) = loo_slots(levels, fits.len());
+    let half = (LOO_BINS / 2) as f64;
     let pi: Vec<f64> = (0..LOO_BINS)
         .map(|b| {
             let x = (b as f64 + 0.5 - half) * LOO_BIN_WIDTH;

@@ -197,6 +197,11 @@ impl FlatGraph {
         self.pair.as_ref().map_or(pos, |s| s[pos] as usize)
     }
 
+    /// The left-order position of the pair at a right-order position.
+    pub fn left_position(&self, right_pos: usize) -> usize {
+        self.r2l[right_pos] as usize
+    }
+
     /// Per right-order position, the same value as `by_left` holds at the left-order position.
     pub fn to_right_order<T: Copy + Send + Sync + Default>(&self, by_left: &[T]) -> Vec<T> {
         self.r2l.par_iter().map(|&p| by_left[p as usize]).collect()

@@ -457,6 +457,20 @@ impl LinkPrior {
         posterior: &[f64],
         opts: &BpOptions,
     ) -> Vec<f64> {
+        let (post_k, prior_k) = self.sums(link_log_odds, posterior, opts);
+        apply_prior_step(link_log_odds, &post_k, &prior_k);
+        prior_k
+    }
+
+    /// The sums of [`LinkPrior::step`] before its update: per group, the posterior's sum and
+    /// the prior's expected link count. Sums of pieces of the graph that hold whole
+    /// components add up to the whole graph's (up to the order of the additions).
+    pub fn sums(
+        &mut self,
+        link_log_odds: &[f64],
+        posterior: &[f64],
+        opts: &BpOptions,
+    ) -> (Vec<f64>, Vec<f64>) {
         let n = link_log_odds.len();
         let w: Vec<f64> = link_log_odds.iter().map(|&l| weight_of(l)).collect();
         // From fresh messages PRIOR_BP_ITERATIONS sweeps, then PRIOR_WARM_SWEEPS per step
@@ -508,13 +522,47 @@ impl LinkPrior {
                 prior_k[k as usize] += q;
             }
         }
-        for k in 0..n {
-            if post_k[k] > 0.0 && prior_k[k] > 0.0 {
-                link_log_odds[k] =
-                    (link_log_odds[k] + (post_k[k] / prior_k[k]).ln()).clamp(-30.0, 30.0);
-            }
+        (post_k, prior_k)
+    }
+
+    /// The BP messages of the prior's graph per pair (indices of the `left` / `right` given
+    /// to [`LinkPrior::new`]): the left record's and the right record's message into the
+    /// pair; NaN for pairs enumerated exactly (they have none). A distributed run keeps them
+    /// between rounds beside its pairs.
+    pub fn messages_by_pair(&self, pairs: usize) -> (Vec<f64>, Vec<f64>) {
+        let g = &self.graph;
+        let (mut lm, mut rm) = (vec![f64::NAN; pairs], vec![f64::NAN; pairs]);
+        for pos in 0..g.len() {
+            lm[g.pair(pos)] = self.messages.lm[pos];
         }
-        prior_k
+        for (q, &m) in self.messages.rm.iter().enumerate() {
+            rm[g.pair(g.left_position(q))] = m;
+        }
+        (lm, rm)
+    }
+
+    /// Messages of [`LinkPrior::messages_by_pair`] taken back (the same pairs in the same
+    /// order): the next step starts warm from them, as if this prior had made the last step.
+    pub fn set_messages_by_pair(&mut self, lm: &[f64], rm: &[f64]) {
+        let g = &self.graph;
+        for pos in 0..g.len() {
+            self.messages.lm[pos] = lm[g.pair(pos)];
+        }
+        for q in 0..self.messages.rm.len() {
+            self.messages.rm[q] = rm[g.pair(g.left_position(q))];
+        }
+        self.fresh = false;
+    }
+}
+
+/// The update of [`LinkPrior::step`] from its (summed) [`LinkPrior::sums`]:
+/// `lambda_g += ln(E_post[K_g] / E_prior[K_g])`, clamped to [-30, 30].
+pub fn apply_prior_step(link_log_odds: &mut [f64], post_k: &[f64], prior_k: &[f64]) {
+    for k in 0..link_log_odds.len() {
+        if post_k[k] > 0.0 && prior_k[k] > 0.0 {
+            link_log_odds[k] =
+                (link_log_odds[k] + (post_k[k] / prior_k[k]).ln()).clamp(-30.0, 30.0);
+        }
     }
 }
 

@@ -8,9 +8,9 @@
 //!
 //! The order: plain EM on the pattern counts ([`model::fit`]); then rounds of the one-to-one
 //! refinement, each taking link probabilities from a loose BP on the candidate graph
-//! ([`confidence::marginals`]), m from the pairs the other fields identify
+//! ([`crate::posterior::marginals`]), m from the pairs the other fields identify
 //! ([`model::leave_one_out_m`]), u and p by the M-step ([`model::fit_from_shares`]), and a step
-//! of the link prior ([`confidence::LinkPrior`], its messages kept from round to round); with
+//! of the link prior ([`crate::posterior::LinkPrior`], its messages kept from round to round); with
 //! two or more passes, further rounds refit each set of passes ([`model::Strata`]);
 //! value-frequency tables from the final link probabilities. Pattern counts stay the sufficient statistic of every M-step.
 
@@ -21,9 +21,11 @@ use crate::error::{Error, Result};
 use crate::io;
 use crate::model::check::ModelCheck;
 use crate::model::{self, EmOptions, Fit, PairPatterns, Strata, ValueFrequency};
-use crate::posterior::{self as confidence, BpOptions};
+use crate::posterior::BpOptions;
 use crate::records::{Records, MISSING};
 use std::collections::HashMap;
+
+pub mod rounds;
 
 /// What the fit stage gives the stages after it.
 pub struct Fitted {
@@ -115,106 +117,41 @@ pub fn fit(
     };
     // The fit and its one-to-one refinement use field-level weights; value-frequency tables
     // are then estimated from the refined link probabilities of the candidate pairs.
-    let no_frequency: Vec<Option<ValueFrequency>> = vec![None; records.fields.len()];
-    let (_, mut theta) = pair_weights_indexed(records, cands, pp, &fit, None, &no_frequency, None);
-    let mut strata = Some(Strata::new(&cands.passes))
+    let strata = Some(Strata::new(&cands.passes))
         .filter(|s| config.model.per_pass && s.masks.len() > 1 && !known.any_fixed());
     let plain_fit = fit.clone();
-    let mut fit = fit;
-    let mut link_prob: Vec<f64> = {
-        use rayon::prelude::*;
-        theta.par_iter().map(|&t| confidence::pairwise(t)).collect()
+    let (of_pair, masks) = match strata {
+        Some(s) => (Some(s.of_pair), Some(s.masks)),
+        None => (None, None),
     };
-    let mut gamma: Vec<f64> = Vec::new();
-    let mut link_log_odds: Vec<f64> = Vec::new();
-    let mut pooled_link_log_odds: Option<f64> = None;
-    if !cands.is_empty() {
-        // The refinement only needs shares per pattern, so a looser BP serves; the reported
-        // confidences use the default settings.
-        let rough = REFINEMENT_BP;
+    let mut refine = rounds::Refinement::new(counts.clone(), fit, masks, known);
+    let link_prob: Vec<f64> = if cands.is_empty() {
+        Vec::new()
+    } else {
         // The pooled refinement first; the strata start from its link probabilities (from
         // plain EM's, a stratum holding few false pairs can take true pairs' leftover mass
         // for its false law and never recover).
-        let rounds = ONE_TO_ONE_ROUNDS + if strata.is_some() { STRATA_ROUNDS } else { 0 };
-        crate::budget::trace_memory("fit: before the prior's graph");
-        let mut prior =
-            confidence::LinkPrior::new(records.n_left(), &cands.left, &cands.right, |_| 0);
-        crate::budget::trace_memory("fit: the prior's graph");
-        for round in 0..rounds {
-            if cancelled() {
-                return Err(Error::new(
-                    crate::ErrorKind::Cancelled,
-                    format!(
-                        "the run was stopped in round {} of the fitting stage",
-                        round + 1
-                    ),
-                ));
-            }
-            // Only the last round's link probabilities are kept (8 bytes a pair less at the
-            // fit's peak).
-            drop(std::mem::take(&mut link_prob));
-            crate::budget::trace_memory("fit: round start");
-            let marg =
-                confidence::marginals(records.n_left(), &cands.left, &cands.right, &theta, &rough);
-            crate::budget::trace_memory("fit: rough marginals");
-            gamma = pattern_shares(pp, counts, &marg.p);
-            let stratified = round >= ONE_TO_ONE_ROUNDS;
-            // m by leave-one-field-out from the link probabilities of this round (see
-            // model::leave_one_out_m), u, p and the missing shares by the M-step.
-            let pooled_m = model::leave_one_out_m(pp, &[&fit], |_| 0, &marg.p);
-            let strata_m = strata
-                .as_ref()
-                .filter(|s| stratified && !s.fits.is_empty())
-                .map(|s| {
-                    let fits: Vec<&Fit> = s.fits.iter().collect();
-                    model::leave_one_out_m(pp, &fits, |i| s.stratum_of(i), &marg.p)
-                });
-            fit = model::fit_from_shares(counts, &gamma, &fit, &known);
-            fit.m = pooled_m.into_iter().next().unwrap_or_default();
-            known.apply_m(&mut fit.m);
-            if let (Some(s), true) = (strata.as_mut(), stratified) {
-                s.refit(pp, &marg.p, &fit);
-                if let Some(ms) = strata_m {
-                    for (f, m) in s.fits.iter_mut().zip(ms) {
-                        f.m = m;
-                    }
-                }
-            }
-            let st = strata.as_ref().filter(|_| stratified);
-            let (group, fits): (Option<&[u16]>, Vec<&Fit>) = match st {
-                Some(s) => (Some(&s.of_pair), s.fits.iter().collect()),
-                None => (None, vec![&fit]),
-            };
-            if link_log_odds.len() != fits.len() {
-                if !link_log_odds.is_empty() {
-                    prior.regroup(|i| group.map_or(0, |g| g[i] as u32));
-                }
-                // The pooled rounds' prior, kept when the strata take over.
-                pooled_link_log_odds = link_log_odds.first().copied();
-                // Each stratum starts from its share's log odds, moved as far as the pooled
-                // prior has moved from the pooled share's.
-                let shift = pooled_link_log_odds.map_or(0.0, |l| l - fit.prior_log_odds());
-                link_log_odds = fits.iter().map(|f| f.prior_log_odds() + shift).collect();
-            }
-            prior.step(&mut link_log_odds, &marg.p, &rough);
-            crate::budget::trace_memory("fit: link prior");
-            let wg = Weigher::new(
-                records,
-                cands,
-                pp,
-                &fit,
-                st,
-                &no_frequency,
-                Some(&link_log_odds),
-            );
-            pair_thetas_into(&mut theta, &wg);
-            crate::budget::trace_memory("fit: weights");
-            link_prob = marg.p;
-        }
-        if link_log_odds.len() == 1 {
-            pooled_link_log_odds = link_log_odds.first().copied();
-        }
-    }
+        let piece = rounds::Piece {
+            n_left: records.n_left(),
+            left: &cands.left,
+            right: &cands.right,
+            pattern: &pp.of_pair,
+            stratum: of_pair.as_deref(),
+        };
+        refine.run_on(&piece, cancelled)?
+    };
+    let rounds::Refinement {
+        fit,
+        strata,
+        link_log_odds,
+        pooled_link_log_odds,
+        gamma,
+        ..
+    } = refine;
+    let strata = strata.map(|mut s| {
+        s.of_pair = of_pair.unwrap_or_default();
+        s
+    });
     let dependence = if gamma.is_empty() {
         Vec::new()
     } else {
@@ -246,7 +183,6 @@ pub fn fit(
             })
         })
         .collect();
-    drop(std::mem::take(&mut theta));
     let (weight, theta) = pair_weights_indexed(
         records,
         cands,
@@ -403,22 +339,10 @@ pub const ONE_TO_ONE_ROUNDS: usize = 3;
 /// Further rounds that refit each stratum of pass sets (see [`model::Strata`]).
 pub const STRATA_ROUNDS: usize = 2;
 
-/// Mean link probability of the pairs of each pattern, in the order of `counts`.
-fn pattern_shares(pp: &PairPatterns, counts: &PatternCounts, p: &[f64]) -> Vec<f64> {
-    let mut sum = vec![0.0f64; counts.patterns.len()];
-    for (&j, &q) in pp.of_pair.iter().zip(p) {
-        sum[j as usize] += q;
-    }
-    sum.iter()
-        .zip(&counts.counts)
-        .map(|(s, &n)| s / n)
-        .collect()
-}
-
 /// Per pair: the weight (sum of per-field log-likelihood ratios, value-frequency adjusted) and
 /// theta = weight + the prior log odds, from the pair's stratum fit when `strata` is given. The
 /// prior log odds are `link_log_odds` (one per stratum, or one pooled value; see
-/// [`confidence::LinkPrior::step`]) when given, else ln(p / (1 - p)) of the fit.
+/// [`crate::posterior::LinkPrior::step`]) when given, else ln(p / (1 - p)) of the fit.
 /// `comparison` must still hold its codes (a run's `Prepared` has freed them: use
 /// [`pair_weights_indexed`] with its `patterns`).
 pub fn pair_weights(
@@ -441,10 +365,8 @@ struct Weigher<'a> {
     pp: &'a PairPatterns,
     strata: Option<&'a Strata>,
     frequency: &'a [Option<ValueFrequency>],
-    /// The weight of every (stratum, pattern).
-    table: Vec<f64>,
-    /// Prior log odds per stratum.
-    prior: Vec<f64>,
+    /// The weight of every (stratum, pattern) and the prior log odds per stratum.
+    weighing: rounds::Weighing,
     /// The fields with value-frequency tables.
     adjusted: Vec<usize>,
 }
@@ -463,23 +385,7 @@ impl<'a> Weigher<'a> {
             Some(s) => s.fits.iter().collect(),
             None => vec![fit],
         };
-        let table: Vec<f64> = fits
-            .iter()
-            .flat_map(|f| pp.patterns.iter().map(|pat| f.pattern_weight(pat)))
-            .collect();
-        let prior: Vec<f64> = match link_log_odds {
-            Some(l) => l.to_vec(),
-            None => fits
-                .iter()
-                .map(|f| {
-                    if f.p > 0.0 && f.p < 1.0 {
-                        f.prior_log_odds()
-                    } else {
-                        0.0
-                    }
-                })
-                .collect(),
-        };
+        let weighing = rounds::Weighing::new(&fits, &pp.patterns, link_log_odds);
         let adjusted: Vec<usize> = (0..frequency.len())
             .filter(|&k| frequency[k].is_some())
             .collect();
@@ -489,22 +395,21 @@ impl<'a> Weigher<'a> {
             pp,
             strata,
             frequency,
-            table,
-            prior,
+            weighing,
             adjusted,
         }
     }
 
-    fn stratum(&self, i: usize) -> usize {
-        self.strata.map_or(0, |s| s.stratum_of(i))
+    fn stratum(&self, i: usize) -> u16 {
+        self.strata.map_or(0, |s| s.of_pair[i])
     }
 
     fn weight(&self, i: usize) -> f64 {
-        let j = self.pp.of_pair[i] as usize;
-        let mut w = self.table[self.stratum(i) * self.pp.patterns.len() + j];
+        let j = self.pp.of_pair[i];
+        let mut w = self.weighing.weight(j, self.stratum(i));
         for &k in &self.adjusted {
             if let Some(vf) = &self.frequency[k] {
-                if self.pp.patterns[j][k] == 0 {
+                if self.pp.patterns[j as usize][k] == 0 {
                     let v = self.records.fields[k].left[self.cands.left[i] as usize];
                     if v != MISSING {
                         w += vf.adjustment[v as usize];
@@ -516,7 +421,7 @@ impl<'a> Weigher<'a> {
     }
 
     fn theta(&self, i: usize, weight: f64) -> f64 {
-        weight + self.prior[self.stratum(i)]
+        self.weighing.theta(self.stratum(i), weight)
     }
 }
 
@@ -542,15 +447,4 @@ pub fn pair_weights_indexed(
         .map(|(i, &w)| wg.theta(i, w))
         .collect();
     (weight, theta)
-}
-
-/// The thetas of [`pair_weights_indexed`] written into `theta`, without the weights (the
-/// fit's rounds need only theta, and a second and third vector per pair at its peak cost a
-/// gigabyte at a million records loosely blocked).
-fn pair_thetas_into(theta: &mut [f64], wg: &Weigher<'_>) {
-    use rayon::prelude::*;
-    theta
-        .par_iter_mut()
-        .enumerate()
-        .for_each(|(i, t)| *t = wg.theta(i, wg.weight(i)));
 }

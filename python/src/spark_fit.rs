@@ -1,0 +1,442 @@
+//! The native pieces of the Spark entry point after comparison: the driver's side of the
+//! fit's one-to-one refinement ([`Refiner`], holding only pattern counts and laws) and the
+//! per-partition steps of each round, then the confidences and the matching, on partitions
+//! that hold whole connected components of the candidate graph.
+//!
+//! A partition's pairs come as an Arrow table with `lrow`, `rrow` (the records' global row
+//! numbers; any increasing numbering), `code` (the pair's pattern code) and `passes` (the
+//! mask of the passes that found it), in ascending (`lrow`, `rrow`) order, as one machine
+//! orders its pairs, so that sums within a component are made in the same order.
+//! Messages from the driver to the partitions and sums back are JSON (floats round-trip
+//! exactly: serde_json's `float_roundtrip`).
+
+use crate::{config_for, errors, frames};
+use arrow_array::{Array, ArrayRef, BooleanArray, Float64Array, Int64Array, RecordBatch};
+use dovetail::fit::rounds::{Piece, Refinement, RoundA, RoundB, Shape, SumsA, SumsB, Weighing};
+use dovetail::model::Fit;
+use dovetail::pipeline;
+use pyo3::exceptions::PyValueError;
+use pyo3::prelude::*;
+use serde::{Deserialize, Serialize};
+use std::path::PathBuf;
+use std::sync::Arc;
+
+/// The shape the partitions need: the pattern table, the patterns' codes (ascending, the
+/// table's order) and the strata's masks.
+#[derive(Serialize, Deserialize)]
+struct PieceShape {
+    shape: Shape,
+    codes: Vec<u64>,
+}
+
+fn to_json<T: Serialize>(x: &T) -> PyResult<String> {
+    serde_json::to_string(x).map_err(|e| PyValueError::new_err(format!("cannot write JSON: {e}")))
+}
+
+fn from_json<'a, T: Deserialize<'a>>(s: &'a str, what: &str) -> PyResult<T> {
+    serde_json::from_str(s).map_err(|e| PyValueError::new_err(format!("bad {what}: {e}")))
+}
+
+/// The driver's side of the refinement: pattern counts, laws, the link prior's log odds.
+#[pyclass(module = "dovetail._dovetail")]
+pub struct Refiner {
+    inner: Refinement,
+    codes: Vec<u64>,
+    plain: Fit,
+    config: dovetail::config::Config,
+}
+
+#[pymethods]
+impl Refiner {
+    /// From the summed pattern counts (`codes` with their `pairs`, any order), the distinct
+    /// pass masks of the pairs, the tables' record counts and the config: plain EM, as one
+    /// machine's first fit.
+    #[new]
+    #[pyo3(signature = (codes, pairs, masks, n_left, n_right, config_json))]
+    fn new(
+        py: Python<'_>,
+        codes: Vec<u64>,
+        pairs: Vec<f64>,
+        masks: Vec<u16>,
+        n_left: usize,
+        n_right: usize,
+        config_json: &str,
+    ) -> PyResult<Refiner> {
+        let placeholder = Some(frames::Source::Path(PathBuf::new()));
+        let config = config_for(None, Some(config_json), &placeholder, &placeholder)
+            .map_err(errors::to_py)?;
+        if config.field.iter().any(|f| f.frequency) {
+            return Err(errors::to_py(dovetail::Error::config(
+                "value-frequency fields (`frequency = true`) are not available on Spark yet; take the setting out for a Spark run",
+            )));
+        }
+        py.detach(move || -> dovetail::Result<Refiner> {
+            let mut by_code: Vec<(u64, f64)> = codes.into_iter().zip(pairs).collect();
+            by_code.sort_by_key(|&(c, _)| c);
+            let codes: Vec<u64> = by_code.iter().map(|&(c, _)| c).collect();
+            let levels = pipeline::code_levels(&config, &codes)?;
+            let patterns: Vec<(Vec<u8>, f64)> = levels
+                .into_iter()
+                .zip(by_code.iter().map(|&(_, n)| n))
+                .collect();
+            let counts = dovetail::compare::PatternCounts {
+                levels: pipeline::field_levels(&config)?,
+                patterns: patterns.iter().map(|(p, _)| p.clone()).collect(),
+                counts: patterns.iter().map(|&(_, n)| n).collect(),
+            };
+            let plain = pipeline::fit_from_counts(&config, patterns, n_left, n_right)?;
+            let mut masks = masks;
+            masks.sort_unstable();
+            masks.dedup();
+            let masks = Some(masks).filter(|_| config.model.per_pass);
+            let inner = Refinement::new(counts, plain.clone(), masks, Default::default());
+            Ok(Refiner {
+                inner,
+                codes,
+                plain,
+                config,
+            })
+        })
+        .map_err(errors::to_py)
+    }
+
+    /// Rounds in all.
+    fn rounds(&self) -> usize {
+        self.inner.rounds()
+    }
+
+    /// The round under way (from 0).
+    fn round(&self) -> usize {
+        self.inner.round()
+    }
+
+    /// The shape every partition needs, as JSON.
+    fn shape(&self) -> PyResult<String> {
+        to_json(&PieceShape {
+            shape: self.inner.shape.clone(),
+            codes: self.codes.clone(),
+        })
+    }
+
+    /// The first step of the round under way, as JSON.
+    fn round_a(&self) -> PyResult<String> {
+        to_json(&self.inner.round_a())
+    }
+
+    /// The laws refitted from the partitions' first-step sums (JSON each, added in the order
+    /// given); returns the second step, as JSON.
+    fn take_a(&mut self, sums: Vec<String>) -> PyResult<String> {
+        let mut total = SumsA::default();
+        for s in &sums {
+            total.add(&from_json::<SumsA>(s, "first-step sums")?);
+        }
+        to_json(&self.inner.take_a(&total))
+    }
+
+    /// The link prior's update from the partitions' second-step sums; the round ends.
+    fn take_b(&mut self, sums: Vec<String>) -> PyResult<()> {
+        let mut total = SumsB::default();
+        for s in &sums {
+            total.add(&from_json::<SumsB>(s, "second-step sums")?);
+        }
+        self.inner.take_b(&total);
+        Ok(())
+    }
+
+    /// How the pairs are weighed after the last round (for [`piece_finish`]), as JSON.
+    fn weighing(&self) -> PyResult<String> {
+        to_json(self.inner.weighing())
+    }
+
+    /// The link rule of the config: (`min_confidence`, `target_precision` or None, the
+    /// review band's low and high ends).
+    fn link_rule(&self) -> (f64, Option<f64>, f64, f64) {
+        let l = &self.config.link;
+        (
+            l.min_confidence,
+            l.target_precision,
+            l.review_band[0],
+            l.review_band[1],
+        )
+    }
+
+    /// The confidence a chosen pair needs to be a link: `min_confidence`, or with
+    /// `target_precision` the lowest cut-off whose links' mean confidence meets it, from the
+    /// chosen pairs' confidences (as one machine's `cutoff_for_precision`).
+    fn cutoff(&self, chosen_confidences: Vec<f64>) -> f64 {
+        match self.config.link.target_precision {
+            Some(t) => pipeline::cutoff_for_precision(&chosen_confidences, t),
+            None => self.config.link.min_confidence,
+        }
+    }
+
+    /// The laws as JSON: `fit` (the refined pooled laws), `plain_fit` (EM's), `strata` (the
+    /// pass masks and laws of each set of passes, when refitted), `link_log_odds`,
+    /// `pooled_link_log_odds`, and `identified` (false when the classes cannot be told apart:
+    /// no link is then reported).
+    fn laws(&self) -> PyResult<String> {
+        let r = &self.inner;
+        let names: Vec<String> = self.config.field.iter().map(|f| f.name.clone()).collect();
+        let split = vec![None; names.len()];
+        let seps = dovetail::reliability::separation::field_separations(&r.fit, &names, &split);
+        let identified = dovetail::reliability::identification_problems(&r.fit, &seps).is_empty();
+        let strata = r.strata.as_ref().map(|s| {
+            s.masks
+                .iter()
+                .zip(&s.fits)
+                .map(|(m, f)| serde_json::json!({"passes": m, "fit": f}))
+                .collect::<Vec<_>>()
+        });
+        to_json(&serde_json::json!({
+            "fit": r.fit,
+            "plain_fit": self.plain,
+            "strata": strata,
+            "link_log_odds": r.link_log_odds,
+            "pooled_link_log_odds": r.pooled_link_log_odds,
+            "identified": identified,
+        }))
+    }
+}
+
+/// One partition's pairs, read from the Arrow table `pairs`.
+struct Pairs {
+    n_left: usize,
+    left: Vec<u32>,
+    right: Vec<u32>,
+    pattern: Vec<u32>,
+    stratum: Option<Vec<u16>>,
+}
+
+impl Pairs {
+    fn piece(&self) -> Piece<'_> {
+        Piece {
+            n_left: self.n_left,
+            left: &self.left,
+            right: &self.right,
+            pattern: &self.pattern,
+            stratum: self.stratum.as_deref(),
+        }
+    }
+}
+
+/// The batches of an Arrow object (pyarrow table), with the GIL.
+fn batches(py: Python<'_>, obj: &Bound<'_, PyAny>) -> PyResult<Vec<RecordBatch>> {
+    match frames::source(py, obj, true)? {
+        frames::Source::Frame { batches, .. } => Ok(batches),
+        frames::Source::Path(_) => Err(PyValueError::new_err("give an Arrow table of pairs")),
+    }
+}
+
+fn column<'b, T: Array + 'static>(b: &'b RecordBatch, name: &str) -> PyResult<&'b T> {
+    b.column_by_name(name)
+        .and_then(|c| c.as_any().downcast_ref::<T>())
+        .ok_or_else(|| {
+            PyValueError::new_err(format!(
+                "the pairs need a column `{name}` of the right type"
+            ))
+        })
+}
+
+fn i64s(batches: &[RecordBatch], name: &str) -> PyResult<Vec<i64>> {
+    let mut out = Vec::new();
+    for b in batches {
+        out.extend(column::<Int64Array>(b, name)?.values().iter().copied());
+    }
+    Ok(out)
+}
+
+fn f64s(batches: &[RecordBatch], name: &str) -> PyResult<Vec<f64>> {
+    let mut out = Vec::new();
+    for b in batches {
+        out.extend(column::<Float64Array>(b, name)?.values().iter().copied());
+    }
+    Ok(out)
+}
+
+/// Local record numbers that keep the order of the global ones.
+fn local(rows: &[i64]) -> (usize, Vec<u32>) {
+    let mut seen = rows.to_vec();
+    seen.sort_unstable();
+    seen.dedup();
+    let idx = rows
+        .iter()
+        .map(|r| seen.binary_search(r).unwrap_or(0) as u32)
+        .collect();
+    (seen.len(), idx)
+}
+
+fn read_pairs(batches: &[RecordBatch], shape: &PieceShape) -> PyResult<Pairs> {
+    let (n_left, left) = local(&i64s(batches, "lrow")?);
+    let (_, right) = local(&i64s(batches, "rrow")?);
+    let pattern = i64s(batches, "code")?
+        .into_iter()
+        .map(|c| {
+            shape
+                .codes
+                .binary_search(&(c as u64))
+                .map(|j| j as u32)
+                .map_err(|_| {
+                    PyValueError::new_err(format!("pattern code {c} is not in the counts"))
+                })
+        })
+        .collect::<PyResult<Vec<u32>>>()?;
+    let stratum = (!shape.shape.masks.is_empty())
+        .then(|| i64s(batches, "passes"))
+        .transpose()?
+        .map(|m| {
+            m.into_iter()
+                .map(|m| shape.shape.stratum_of_mask(m as u16))
+                .collect()
+        });
+    Ok(Pairs {
+        n_left,
+        left,
+        right,
+        pattern,
+        stratum,
+    })
+}
+
+/// A piece step's inputs: the shape, the driver's message, the partition's pairs.
+fn piece_input<T: for<'a> Deserialize<'a>>(
+    py: Python<'_>,
+    shape_json: &str,
+    message_json: &str,
+    pairs: &Bound<'_, PyAny>,
+) -> PyResult<(PieceShape, T, Vec<RecordBatch>)> {
+    Ok((
+        from_json(shape_json, "shape")?,
+        from_json(message_json, "message")?,
+        batches(py, pairs)?,
+    ))
+}
+
+fn stream(columns: Vec<(&str, ArrayRef)>) -> PyResult<frames::Stream> {
+    let batch = RecordBatch::try_from_iter(columns)
+        .map_err(|e| PyValueError::new_err(format!("cannot build the table: {e}")))?;
+    Ok(frames::Stream::new(batch))
+}
+
+/// The first step of a round on one partition's pairs: (its sums as JSON, a table of `p`,
+/// each pair's rough one-to-one link probability, in the pairs' order).
+#[pyfunction]
+#[pyo3(signature = (shape_json, round_json, pairs))]
+pub fn piece_round_a(
+    py: Python<'_>,
+    shape_json: &str,
+    round_json: &str,
+    pairs: &Bound<'_, PyAny>,
+) -> PyResult<(String, frames::Stream)> {
+    let (shape, round, batches) = piece_input::<RoundA>(py, shape_json, round_json, pairs)?;
+    let (sums, p) = py.detach(move || -> PyResult<(SumsA, Vec<f64>)> {
+        let pairs = read_pairs(&batches, &shape)?;
+        let piece = pairs.piece();
+        let mut theta = vec![0.0; piece.len()];
+        piece.thetas_into(&round.weighing, &mut theta);
+        let (p, sums) = piece.round_a(&shape.shape, &round, &theta);
+        Ok((sums, p))
+    })?;
+    Ok((
+        to_json(&sums)?,
+        stream(vec![("p", Arc::new(Float64Array::from(p)))])?,
+    ))
+}
+
+/// The link prior's step on one partition's pairs, which carry `p` (the round's link
+/// probabilities) and, after round 0, `lm` and `rm` (the prior's messages of the last
+/// round): (its sums as JSON, a table of the new `lm` and `rm`, in the pairs' order).
+#[pyfunction]
+#[pyo3(signature = (shape_json, round_json, pairs))]
+pub fn piece_round_b(
+    py: Python<'_>,
+    shape_json: &str,
+    round_json: &str,
+    pairs: &Bound<'_, PyAny>,
+) -> PyResult<(String, frames::Stream)> {
+    let (shape, round, batches) = piece_input::<RoundB>(py, shape_json, round_json, pairs)?;
+    let (sums, lm, rm) = py.detach(move || -> PyResult<(SumsB, Vec<f64>, Vec<f64>)> {
+        let pairs = read_pairs(&batches, &shape)?;
+        let p = f64s(&batches, "p")?;
+        let piece = pairs.piece();
+        let mut prior = piece.link_prior();
+        if round.round > 0 {
+            prior.set_messages_by_pair(&f64s(&batches, "lm")?, &f64s(&batches, "rm")?);
+        }
+        let sums = piece.round_b(&mut prior, &round, &p);
+        let (lm, rm) = prior.messages_by_pair(piece.len());
+        Ok((sums, lm, rm))
+    })?;
+    Ok((
+        to_json(&sums)?,
+        stream(vec![
+            ("lm", Arc::new(Float64Array::from(lm))),
+            ("rm", Arc::new(Float64Array::from(rm))),
+        ])?,
+    ))
+}
+
+/// The stages after the fit on one partition's pairs, weighed by `weighing_json`
+/// ([`Refiner::weighing`]): a table of `weight`, `theta`, `confidence` (the one-to-one
+/// posterior probability of the link, by BP or exact enumeration per component, as one
+/// machine's confidence stage) and `chosen` (in the maximum-weight one-to-one matching), in
+/// the pairs' order.
+#[pyfunction]
+#[pyo3(signature = (shape_json, weighing_json, pairs))]
+pub fn piece_finish(
+    py: Python<'_>,
+    shape_json: &str,
+    weighing_json: &str,
+    pairs: &Bound<'_, PyAny>,
+) -> PyResult<frames::Stream> {
+    let (shape, weighing, batches) = piece_input::<Weighing>(py, shape_json, weighing_json, pairs)?;
+    let (weight, theta, conf, chosen) = py.detach(move || -> PyResult<_> {
+        let pairs = read_pairs(&batches, &shape)?;
+        let piece = pairs.piece();
+        let n = piece.len();
+        let weight: Vec<f64> = (0..n)
+            .map(|i| weighing.weight(piece.pattern[i], piece.stratum(i)))
+            .collect();
+        let theta: Vec<f64> = (0..n)
+            .map(|i| weighing.theta(piece.stratum(i), weight[i]))
+            .collect();
+        let m =
+            dovetail::matching::max_weight_matching(piece.n_left, piece.left, piece.right, &theta);
+        let mut chosen = vec![false; n];
+        for &i in &m.chosen {
+            chosen[i] = true;
+        }
+        let conf = dovetail::posterior::marginals(
+            piece.n_left,
+            piece.left,
+            piece.right,
+            &theta,
+            &dovetail::posterior::BpOptions::default(),
+        );
+        Ok((weight, theta, conf.p, chosen))
+    })?;
+    stream(vec![
+        ("weight", Arc::new(Float64Array::from(weight))),
+        ("theta", Arc::new(Float64Array::from(theta))),
+        ("confidence", Arc::new(Float64Array::from(conf))),
+        ("chosen", Arc::new(BooleanArray::from(chosen))),
+    ])
+}
+
+/// The pattern code of each pair of one partition's joined pairs (pair i is row
+/// `left_rows[i]` of `left` with row `right_rows[i]` of `right`): a table of `code`.
+#[pyfunction]
+#[pyo3(signature = (left, right, left_rows, right_rows, config_json))]
+pub fn pair_codes(
+    py: Python<'_>,
+    left: &Bound<'_, PyAny>,
+    right: &Bound<'_, PyAny>,
+    left_rows: Vec<u32>,
+    right_rows: Vec<u32>,
+    config_json: &str,
+) -> PyResult<frames::Stream> {
+    let codes = crate::spark::partition_tables(py, left, right, config_json, move |c, l, r| {
+        pipeline::pair_codes(c, l, r, left_rows, right_rows)
+    })?;
+    let codes: Vec<i64> = codes.into_iter().map(|c| c as i64).collect();
+    stream(vec![("code", Arc::new(Int64Array::from(codes)))])
+}
