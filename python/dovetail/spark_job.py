@@ -3,17 +3,21 @@
     spark-submit "$(python -c 'import dovetail.spark_job as j; print(j.__file__)')" \\
         --left left.parquet --right right.parquet --config link.toml --out run-spark
 
-Work in progress (issue 22): it runs the stages that are on Spark so far and writes, into
-``--out`` (a new folder, or an empty one):
+It links the two tables on Spark (:func:`dovetail.spark.link_spark`) and writes, into
+``--out`` (a new folder, or an empty one), Parquet folders of Spark's parts:
 
-* ``candidate_pairs/`` - Parquet: ``left_id``, ``right_id``, ``passes`` (bit p for pass p),
-  ``component`` (the pair's connected component);
-* ``pattern_counts/`` - Parquet: ``pattern`` (levels joined with ``,``, ``m`` = missing),
-  ``pairs``;
-* ``fit.json`` - the fit's first step (EM) from those counts, with the record and pair counts.
+* ``links/`` - ``left_id``, ``right_id``, ``weight``, ``confidence``: one row per link;
+* ``unlinked_left/``, ``unlinked_right/`` - ``id``: the records without a link;
+* ``review/`` - ``left_id``, ``right_id``, ``weight``, ``confidence``, ``linked``: the pairs
+  whose confidence is in the config's review band, for clerical review;
+* ``candidate_pairs/`` - every candidate pair: ``left_id``, ``right_id``, ``passes`` (bit p
+  for pass p), ``weight``, ``theta``, ``confidence``, ``chosen``, ``linked``;
+* ``summary.json`` - record, pair and link counts, the laws (EM's and the refined), the
+  cut-off, and what is not computed on Spark yet (the verdict and forecast among them: run
+  ``dovetail assess`` on one machine for them while that is so).
 
-Links, confidences and the verdict are not on Spark yet: run ``dovetail link`` for them. On a
-local file system the folder appears whole or not at all (written beside it, then renamed).
+On a local file system the folder appears whole or not at all (written beside it, then
+renamed).
 
 Links are probabilistic. Review them before acting on any person, and follow local
 data-protection law, approvals and disclosure rules for the data you link.
@@ -56,35 +60,27 @@ def main(argv: Optional[List[str]] = None) -> int:
     cfg = json.loads(ds.config_text(args.config))
     session = SparkSession.builder.appName("dovetail").getOrCreate()
     left, right = _read(session, args.left), _read(session, args.right)
-    pairs = ds.candidate_pairs(left, right, cfg).cache()
-    counts = ds.pattern_counts(left, right, pairs, cfg).cache()
-    n_left, n_right = left.count(), right.count()
-    fit = ds.fit_counts(counts, n_left, n_right, cfg)
-    with_component = pairs.join(
-        ds.components(pairs).select("left_id", "right_id", "component"), ["left_id", "right_id"]
-    )
+    result = ds.link_spark(left, right, cfg)
 
     parent = out.resolve().parent
     parent.mkdir(parents=True, exist_ok=True)
     work = Path(tempfile.mkdtemp(prefix=f".{out.name}.", dir=parent))
     try:
-        with_component.write.parquet(str(work / "candidate_pairs"))
-        counts.write.parquet(str(work / "pattern_counts"))
-        summary = {
-            "left_records": n_left,
-            "right_records": n_right,
-            "candidate_pairs": int(sum(r["pairs"] for r in counts.collect())),
-            "passes": [name for name, _ in ds.passes(cfg)],
-            "first_fit": fit,
-        }
-        (work / "fit.json").write_text(json.dumps(summary, indent=2) + "\n")
+        for name in ("links", "unlinked_left", "unlinked_right", "review"):
+            getattr(result, name).write.parquet(str(work / name))
+        result.pairs.write.parquet(str(work / "candidate_pairs"))
+        summary = dict(result.summary, passes=[name for name, _ in ds.passes(cfg)])
+        (work / "summary.json").write_text(json.dumps(summary, indent=2) + "\n")
         if out.exists():
             out.rmdir()
         os.replace(work, out)
     except BaseException:
         shutil.rmtree(work, ignore_errors=True)
         raise
-    print(f"wrote {out}: {summary['candidate_pairs']} candidate pairs, first fit p = {fit['p']:.4f}")
+    print(
+        f"wrote {out}: {summary['links']} links among {summary['candidate_pairs']} candidate "
+        f"pairs (links are probabilistic: review before acting on any person)"
+    )
     return 0
 
 

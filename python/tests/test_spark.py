@@ -296,11 +296,12 @@ def test_spark_checks_the_whole_tables(session):
         spark.candidate_pairs(no_phone, right_df, cfg)
 
 
-def test_the_spark_job_writes_pairs_counts_and_fit(session, tmp_path):
+def test_the_spark_job_writes_the_linkage(session, tmp_path):
     import json as _json
 
     import pyarrow.parquet as pq
 
+    import dovetail
     from dovetail import spark_job
 
     left, right = text_frame(SAMPLE_LEFT), text_frame(SAMPLE_RIGHT)
@@ -312,18 +313,99 @@ def test_the_spark_job_writes_pairs_counts_and_fit(session, tmp_path):
          "--config", str(SAMPLE_CONFIG), "--out", str(out)]
     )
     assert code == 0
-    assert sorted(p.name for p in out.iterdir()) == ["candidate_pairs", "fit.json", "pattern_counts"]
+    assert sorted(p.name for p in out.iterdir()) == [
+        "candidate_pairs", "links", "review", "summary.json", "unlinked_left", "unlinked_right"
+    ]
     assert [p.name for p in tmp_path.iterdir() if p.name.startswith(".")] == [], "no work folder left"
-    pairs = pq.read_table(out / "candidate_pairs")
     cfg = sample_dict()
+    pairs = pq.read_table(out / "candidate_pairs")
     want = pair_set(spark.local_candidate_pairs(left, right, cfg))
     got = set(zip(*(pairs.column(c).to_pylist() for c in ("left_id", "right_id", "passes"))))
     assert got == want
-    summary = _json.loads((out / "fit.json").read_text())
+    links = pq.read_table(out / "links")
+    local = dovetail.link(left, right, cfg).links
+    assert set(zip(links.column("left_id").to_pylist(), links.column("right_id").to_pylist())) == set(
+        zip(local.column("left_id").to_pylist(), local.column("right_id").to_pylist())
+    )
+    summary = _json.loads((out / "summary.json").read_text())
     assert summary["candidate_pairs"] == len(want)
-    assert summary["first_fit"] == spark.local_plain_fit(left, right, cfg)
+    assert summary["links"] == local.num_rows
+    assert summary["laws"]["plain_fit"] == spark.local_plain_fit(left, right, cfg)
     # A second run into the same, now full, folder is refused and changes nothing.
     assert spark_job.main(
         ["--left", str(tmp_path / "left.parquet"), "--right", str(tmp_path / "right.parquet"),
          "--config", str(SAMPLE_CONFIG), "--out", str(out)]
     ) == 2
+
+
+# The whole run on Spark against the single machine's (`dovetail.link` on the same tables and
+# config: the library's own run, as the CLI makes it). The links must be the same pairs; the
+# confidences agree to the single machine's six decimals (its links table rounds them, and
+# caps them at 0.999999); the laws to 1e-9 (the partitions' sums are added in another order,
+# and the refinement's BP judges its stopping rule per partition).
+
+
+def local_and_spark(session, cfg, partitions: int):
+    """The sample tables linked by Spark, read in file order in several partitions (small
+    file splits), and by one machine. In file order each record's row number follows the
+    file, as one machine numbers them, so two pairs of exactly equal weight competing for a
+    record are decided the same way (the matching breaks such ties by row order)."""
+    import dovetail
+
+    session.conf.set("spark.sql.files.maxPartitionBytes", "65536")
+    try:
+        read = session.read.option("header", True)
+        left_df, right_df = read.csv(str(SAMPLE_LEFT)), read.csv(str(SAMPLE_RIGHT))
+        assert left_df.rdd.getNumPartitions() > 1 and right_df.rdd.getNumPartitions() > 1
+        # The row numbers are fixed (checkpointed) inside, while the setting holds.
+        got = spark.link_spark(left_df, right_df, cfg, partitions=partitions)
+    finally:
+        session.conf.unset("spark.sql.files.maxPartitionBytes")
+    want = dovetail.link(text_frame(SAMPLE_LEFT), text_frame(SAMPLE_RIGHT), cfg)
+    return got, want
+
+
+def rows(df, *cols) -> list:
+    return [tuple(r[c] for c in cols) for r in df.collect()]
+
+
+@pytest.mark.parametrize("partitions", [1, 4])
+def test_spark_links_equal_the_single_machine_links(session, partitions):
+    cfg = sample_dict()
+    got, want = local_and_spark(session, cfg, partitions)
+    w = want.links.to_pydict()
+    want_links = {(a, b): c for a, b, c in zip(w["left_id"], w["right_id"], w["confidence"])}
+    got_links = {(a, b): c for a, b, c in rows(got.links, "left_id", "right_id", "confidence")}
+    assert len(want_links) > 1000
+    assert set(got_links) == set(want_links)
+    worst = max(abs(min(got_links[k], 0.999999) - want_links[k]) for k in want_links)
+    assert worst <= 1e-6 + 1e-12, worst
+    # The laws: p and the prior log odds of every set of passes.
+    laws, fit = got.summary["laws"], want.summary["fit"]
+    assert abs(laws["fit"]["p"] - fit["p"]) < 1e-9
+    want_odds = [s["link_log_odds"] for s in fit["per_pass"]] or [fit["link_log_odds"]]
+    assert len(want_odds) == 3, "the sample config's passes give three sets of passes"
+    assert max(abs(a - b) for a, b in zip(laws["link_log_odds"], want_odds)) < 1e-9
+    # Every record is linked or unlinked, never both; the unlinked are the single machine's.
+    for side, col in (("left", "left_id"), ("right", "right_id")):
+        unlinked = {r[0] for r in rows(getattr(got, f"unlinked_{side}"), "id")}
+        linked = {k[0 if side == "left" else 1] for k in got_links}
+        assert not unlinked & linked
+        assert len(unlinked) + len(linked) == got.summary[f"{side}_records"] == 3000
+        local = set(getattr(want, f"unlinked_{side}").column("id").to_pylist())
+        assert unlinked == local
+    # The review list: the pairs whose confidence is in the review band.
+    r = want.review.to_pydict()
+    assert {(a, b) for a, b in rows(got.review, "left_id", "right_id")} == set(
+        zip(r["left_id"], r["right_id"])
+    )
+    assert got.summary["links"] == len(want_links)
+
+
+def test_spark_links_with_a_target_precision(session):
+    cfg = sample_dict()
+    cfg.setdefault("link", {})["target_precision"] = 0.995
+    got, want = local_and_spark(session, cfg, 3)
+    w = want.links.to_pydict()
+    assert set(rows(got.links, "left_id", "right_id")) == set(zip(w["left_id"], w["right_id"]))
+    assert abs(got.summary["cutoff"] - want.summary["confidence_cutoff"]) < 1e-6
