@@ -251,16 +251,11 @@ def local_plain_fit(left: Any, right: Any, config: Any) -> dict:
     )
 
 
-def components(pairs_df: "DataFrame", *, max_rounds: int = 200) -> "DataFrame":
+def components(pairs_df: "DataFrame", *, max_rounds: int = 64) -> "DataFrame":
     """Each pair's connected component in the graph whose nodes are the records and whose
     edges are the pairs: ``left_id``, ``right_id`` and ``component`` (the least node name of
-    the component, a left record as ``L<id>``, a right one as ``R<id>``).
-
-    Label propagation: every node starts with its own name and takes, round after round, the
-    least label among itself and its neighbours, until no label changes (rounds: the
-    component's diameter plus one). Each round's labels are checkpointed, so the plan does not
-    grow with the rounds. More than ``max_rounds`` rounds is an error (a chain of records that
-    long is not a blocking graph's).
+    the component, a left record as ``L<id>``, a right one as ``R<id>``). See
+    :func:`node_components` for the rounds.
     """
     from pyspark.sql import functions as F
 
@@ -268,30 +263,60 @@ def components(pairs_df: "DataFrame", *, max_rounds: int = 200) -> "DataFrame":
         F.concat(F.lit("L"), F.col("left_id")).alias("a"),
         F.concat(F.lit("R"), F.col("right_id")).alias("b"),
     )
-    edges = e.union(e.select(F.col("b").alias("a"), F.col("a").alias("b"))).localCheckpoint()
-    labels = edges.select(F.col("a").alias("node")).distinct().withColumn("c", F.col("node"))
-    labels = labels.localCheckpoint()
-    for _ in range(max_rounds):
-        heard = edges.join(labels.withColumnRenamed("node", "b"), "b").select(
-            F.col("a").alias("node"), "c"
-        )
-        new = labels.union(heard).groupBy("node").agg(F.min("c").alias("c")).localCheckpoint()
-        changed = (
-            new.alias("n")
-            .join(labels.alias("o"), "node")
-            .where(F.col("n.c") != F.col("o.c"))
-            .limit(1)
-            .count()
-        )
-        labels = new
-        if changed == 0:
-            break
-    else:
-        raise RuntimeError(f"components: labels still changing after {max_rounds} rounds")
+    labels = node_components(e, max_rounds=max_rounds)
     left_label = labels.select(
         F.expr("substring(node, 2)").alias("left_id"), F.col("c").alias("component")
     ).where(F.col("node").startswith("L"))
     return pairs_df.select("left_id", "right_id").join(left_label, "left_id")
+
+
+def node_components(edges: "DataFrame", *, max_rounds: int = 64) -> "DataFrame":
+    """The connected components of the graph of ``edges`` (columns ``a`` and ``b``, node
+    names of one orderable type): ``node``, ``c`` (the least node of its component).
+
+    Label propagation with shortcuts: every node starts with the least of itself and its
+    neighbours; each round it takes the least label among its neighbours' and then the label
+    of its label (a node's label is a node of its component, and no greater than it). The
+    shortcut halves the distance to the least node round after round, so the rounds grow with
+    the logarithm of the diameter, not the diameter (a giant component of loose blocking has
+    a diameter in the hundreds). Labels only fall, so for integer nodes a round whose exact sum
+    of labels did not fall changed none (other nodes: a join of the two rounds). Each round's labels are checkpointed, so the plan does not grow. More than
+    ``max_rounds`` rounds is an error.
+    """
+    from pyspark.sql import functions as F
+
+    both = edges.union(edges.select(F.col("b").alias("a"), F.col("a").alias("b")))
+    both = both.localCheckpoint()
+
+    def propagate(labels: "DataFrame") -> "DataFrame":
+        heard = both.join(labels.withColumnRenamed("node", "b"), "b").select(
+            F.col("a").alias("node"), "c"
+        )
+        return labels.union(heard).groupBy("node").agg(F.min("c").alias("c"))
+
+    def shortcut(labels: "DataFrame") -> "DataFrame":
+        of_label = labels.select(F.col("node").alias("c"), F.col("c").alias("cc"))
+        return labels.join(of_label, "c").select("node", F.least("c", "cc").alias("c"))
+
+    def changed(new: "DataFrame", old: "DataFrame", old_total) -> "tuple[bool, object]":
+        # Integer labels: their exact (decimal) sum falls whenever one falls. Other labels:
+        # a join of the two rounds.
+        if dict(new.dtypes)["c"] in ("bigint", "int", "smallint"):
+            now = new.agg(F.sum(F.col("c").cast("decimal(38,0)"))).collect()[0][0]
+            return now != old_total, now
+        diff = new.alias("n").join(old.alias("o"), "node").where(F.col("n.c") != F.col("o.c"))
+        return diff.limit(1).count() > 0, None
+
+    nodes = both.select(F.col("a").alias("node")).distinct().withColumn("c", F.col("node"))
+    labels = propagate(nodes).localCheckpoint()
+    _, last = changed(labels, labels, None)
+    for _ in range(max_rounds):
+        new = shortcut(propagate(labels)).localCheckpoint()
+        moved, last = changed(new, labels, last)
+        labels = new
+        if not moved:
+            return labels
+    raise RuntimeError(f"components: labels still changing after {max_rounds} rounds")
 
 
 def local_pattern_counts(left: Any, right: Any, config: Any) -> dict:
@@ -474,6 +499,7 @@ def link_spark(
     *,
     partitions: "int | None" = None,
     check: bool = True,
+    timings: "dict | None" = None,
 ) -> SparkLinkage:
     """Links two Spark DataFrames one-to-one, the stages run on Spark, each piece done by the
     library: blocking as joins on the library's keys, comparison per partition of pairs, the
@@ -483,7 +509,8 @@ def link_spark(
     partition's sums, never the pairs.
 
     ``partitions`` is the number of partitions of the pairs for the per-component stages
-    (default: Spark's shuffle partitions). Returns a :class:`SparkLinkage`. The links equal a
+    (default: Spark's shuffle partitions). A dict given as ``timings`` gets each stage's wall
+    seconds. Returns a :class:`SparkLinkage`. The links equal a
     single-machine run's; confidences agree to about 1e-6 (sums over partitions are added in
     another order, and BP's stopping rule is judged per partition).
 
@@ -492,17 +519,30 @@ def link_spark(
     duplicates within a table, the model check, value-frequency fields, labelled pairs,
     random-pair u and clerical decisions.
     """
+    import time
+
     from pyspark.sql import functions as F
+
+    clock = [time.perf_counter()]
+
+    def lap(name: str) -> None:
+        now = time.perf_counter()
+        if timings is not None:
+            timings[name] = timings.get(name, 0.0) + now - clock[0]
+        clock[0] = now
 
     cj = config_text(config)
     if check:
         check_tables(left_df, right_df, config)
+    lap("checks")
     lcols, rcols = _dovetail.read_columns(None, cj)
     left = _with_rows(left_df, lcols, "l__", "lrow")
     right = _with_rows(right_df, rcols, "r__", "rrow")
     n_left, n_right = left.count(), right.count()
+    lap("row numbers")
     pairs = candidate_pairs(left_df, right_df, config, check=False)
     compared = _compare(left, right, pairs, cj).localCheckpoint()
+    lap("blocking and comparing")
     counts = compared.groupBy("code").agg(F.count(F.lit(1)).alias("pairs")).collect()
     masks = [int(r["passes"]) for r in compared.select("passes").distinct().collect()]
     refiner = _dovetail.Refiner(
@@ -514,17 +554,22 @@ def link_spark(
         cj,
     )
     shape = refiner.shape()
+    lap("first fit")
     n_parts = partitions or int(left_df.sparkSession.conf.get("spark.sql.shuffle.partitions"))
-    comp = components(compared.select("left_id", "right_id"))
+    # Nodes as integers (left 2 x row, right 2 x row + 1): cheaper to join than texts.
+    labels = node_components(
+        compared.select((F.col("lrow") * 2).alias("a"), (F.col("rrow") * 2 + 1).alias("b"))
+    )
     state = (
-        compared.join(comp, ["left_id", "right_id"])
-        .select("lrow", "rrow", "code", "passes", "component")
+        compared.join(labels.withColumnRenamed("node", "a"), F.col("lrow") * 2 == F.col("a"))
+        .select("lrow", "rrow", "code", "passes", F.col("c").alias("component"))
         .repartition(n_parts, "component")
         .sortWithinPartitions("lrow", "rrow")
         .drop("component")
         .localCheckpoint()
     )
     n_pairs = state.count()
+    lap("components")
     has_messages = False
     for _ in range(refiner.rounds()):
         a = refiner.round_a()
@@ -538,6 +583,7 @@ def link_spark(
         refiner.take_b([r["sums"] for r in out.where(F.col("sums").isNotNull()).collect()])
         state = out.where(F.col("sums").isNull()).drop("sums")
         has_messages = True
+    lap("refinement rounds")
     done = state.select("lrow", "rrow", "code", "passes").mapInArrow(
         _finish(shape, refiner.weighing()),
         "lrow long, rrow long, passes long, weight double, theta double, confidence double, "
@@ -546,6 +592,7 @@ def link_spark(
     laws = json.loads(refiner.laws())
     min_conf, target, lo, hi = refiner.link_rule()
     done = done.localCheckpoint()
+    lap("confidence and matching")
     if target is not None:
         chosen = [r[0] for r in done.where("chosen").select("confidence").collect()]
         cutoff = refiner.cutoff(chosen)
@@ -574,6 +621,7 @@ def link_spark(
         "left_id", "right_id", "weight", "confidence", "linked"
     )
     n_links = links.count()
+    lap("links")
     summary = {
         "left_records": int(n_left),
         "right_records": int(n_right),

@@ -29,6 +29,59 @@ struct PieceShape {
     codes: Vec<u64>,
 }
 
+/// [`SumsA`] as sent from a partition to the driver: the leave-one-field-out bins, mostly
+/// empty (a pair fills one bin per field), as (index, count) of the bins that are not.
+#[derive(Serialize, Deserialize)]
+struct WireSumsA {
+    pattern_p: Vec<f64>,
+    loo: Vec<(usize, Vec<(u32, f64)>)>,
+    strata: Vec<(f64, f64)>,
+}
+
+impl WireSumsA {
+    fn from_sums(s: SumsA) -> WireSumsA {
+        let loo = s
+            .loo
+            .into_iter()
+            .map(|bins| {
+                let kept = bins
+                    .iter()
+                    .enumerate()
+                    .filter(|(_, &n)| n != 0.0)
+                    .map(|(i, &n)| (i as u32, n))
+                    .collect();
+                (bins.len(), kept)
+            })
+            .collect();
+        WireSumsA {
+            pattern_p: s.pattern_p,
+            loo,
+            strata: s.strata,
+        }
+    }
+
+    fn into_sums(self) -> SumsA {
+        let loo = self
+            .loo
+            .into_iter()
+            .map(|(len, kept)| {
+                let mut bins = vec![0.0; len];
+                for (i, n) in kept {
+                    if let Some(b) = bins.get_mut(i as usize) {
+                        *b = n;
+                    }
+                }
+                bins
+            })
+            .collect();
+        SumsA {
+            pattern_p: self.pattern_p,
+            loo,
+            strata: self.strata,
+        }
+    }
+}
+
 fn to_json<T: Serialize>(x: &T) -> PyResult<String> {
     serde_json::to_string(x).map_err(|e| PyValueError::new_err(format!("cannot write JSON: {e}")))
 }
@@ -128,7 +181,7 @@ impl Refiner {
     fn take_a(&mut self, sums: Vec<String>) -> PyResult<String> {
         let mut total = SumsA::default();
         for s in &sums {
-            total.add(&from_json::<SumsA>(s, "first-step sums")?);
+            total.add(&from_json::<WireSumsA>(s, "first-step sums")?.into_sums());
         }
         to_json(&self.inner.take_a(&total))
     }
@@ -337,7 +390,7 @@ pub fn piece_round_a(
         Ok((sums, p))
     })?;
     Ok((
-        to_json(&sums)?,
+        to_json(&WireSumsA::from_sums(sums))?,
         stream(vec![("p", Arc::new(Float64Array::from(p)))])?,
     ))
 }
