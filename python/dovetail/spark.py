@@ -461,6 +461,16 @@ def _finish(shape: str, weighing: str):
     return run
 
 
+def _union_find(batches: Iterator[pa.RecordBatch]) -> Iterator[pa.RecordBatch]:
+    from dovetail import _dovetail as native
+
+    t = _partition_table(batches)
+    if t is None:
+        return
+    labels = pa.table(native.union_find_components(t)).column("component")
+    yield from t.append_column("component", labels).to_batches()
+
+
 class SparkLinkage:
     """What :func:`link_spark` gives: Spark DataFrames of the links, the unlinked records
     and the pairs for clerical review, every candidate pair with its weight and confidence,
@@ -500,6 +510,7 @@ def link_spark(
     partitions: "int | None" = None,
     check: bool = True,
     timings: "dict | None" = None,
+    one_task_pairs: int = 50_000_000,
 ) -> SparkLinkage:
     """Links two Spark DataFrames one-to-one, the stages run on Spark, each piece done by the
     library: blocking as joins on the library's keys, comparison per partition of pairs, the
@@ -509,7 +520,10 @@ def link_spark(
     partition's sums, never the pairs.
 
     ``partitions`` is the number of partitions of the pairs for the per-component stages
-    (default: Spark's shuffle partitions). A dict given as ``timings`` gets each stage's wall
+    (default: Spark's shuffle partitions). The components are found by union-find in one
+    task when there are at most ``one_task_pairs`` candidate pairs (about 40 bytes each in
+    that task; a giant component goes to one task for its BP anyway), else by label
+    propagation (:func:`node_components`). A dict given as ``timings`` gets each stage's wall
     seconds. Returns a :class:`SparkLinkage`. The links equal a
     single-machine run's; confidences agree to about 1e-6 (sums over partitions are added in
     another order, and BP's stopping rule is judged per partition).
@@ -545,6 +559,7 @@ def link_spark(
     lap("blocking and comparing")
     counts = compared.groupBy("code").agg(F.count(F.lit(1)).alias("pairs")).collect()
     masks = [int(r["passes"]) for r in compared.select("passes").distinct().collect()]
+    n_compared = int(sum(r["pairs"] for r in counts))
     refiner = _dovetail.Refiner(
         [int(r["code"]) for r in counts],
         [float(r["pairs"]) for r in counts],
@@ -556,13 +571,22 @@ def link_spark(
     shape = refiner.shape()
     lap("first fit")
     n_parts = partitions or int(left_df.sparkSession.conf.get("spark.sql.shuffle.partitions"))
-    # Nodes as integers (left 2 x row, right 2 x row + 1): cheaper to join than texts.
-    labels = node_components(
-        compared.select((F.col("lrow") * 2).alias("a"), (F.col("rrow") * 2 + 1).alias("b"))
-    )
+    if n_compared <= one_task_pairs:
+        # The whole graph fits one task: union-find there (the refinement's BP needs a giant
+        # component whole in one task anyway).
+        with_component = compared.select("lrow", "rrow", "code", "passes").coalesce(1).mapInArrow(
+            _union_find, "lrow long, rrow long, code long, passes long, component long"
+        )
+    else:
+        # Nodes as integers (left 2 x row, right 2 x row + 1): cheaper to join than texts.
+        labels = node_components(
+            compared.select((F.col("lrow") * 2).alias("a"), (F.col("rrow") * 2 + 1).alias("b"))
+        )
+        with_component = compared.join(
+            labels.withColumnRenamed("node", "a"), F.col("lrow") * 2 == F.col("a")
+        ).select("lrow", "rrow", "code", "passes", F.col("c").alias("component"))
     state = (
-        compared.join(labels.withColumnRenamed("node", "a"), F.col("lrow") * 2 == F.col("a"))
-        .select("lrow", "rrow", "code", "passes", F.col("c").alias("component"))
+        with_component
         .repartition(n_parts, "component")
         .sortWithinPartitions("lrow", "rrow")
         .drop("component")

@@ -533,6 +533,7 @@ fn _dovetail(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(spark_fit::piece_round_b, m)?)?;
     m.add_function(wrap_pyfunction!(spark_fit::piece_finish, m)?)?;
     m.add_function(wrap_pyfunction!(spark_fit::pair_codes, m)?)?;
+    m.add_function(wrap_pyfunction!(spark_fit::union_find_components, m)?)?;
     m.add("__version__", env!("CARGO_PKG_VERSION"))?;
     Ok(())
 }

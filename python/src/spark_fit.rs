@@ -493,3 +493,53 @@ pub fn pair_codes(
     let codes: Vec<i64> = codes.into_iter().map(|c| c as i64).collect();
     stream(vec![("code", Arc::new(Int64Array::from(codes)))])
 }
+
+/// The connected components of one task's whole pair graph, by union-find: for pairs of left
+/// rows `lrow` and right rows `rrow` (any numbering), per pair the least node of its
+/// component, a left row r as node 2r and a right row as 2r + 1 (the labels of the Spark
+/// side's label propagation). For graphs whose pairs fit one task.
+#[pyfunction]
+#[pyo3(signature = (pairs,))]
+pub fn union_find_components(py: Python<'_>, pairs: &Bound<'_, PyAny>) -> PyResult<frames::Stream> {
+    let batches = batches(py, pairs)?;
+    let label = py.detach(move || -> PyResult<Vec<i64>> {
+        let (lrow, rrow) = (i64s(&batches, "lrow")?, i64s(&batches, "rrow")?);
+        let (nl, left) = local(&lrow);
+        let (nr, right) = local(&rrow);
+        // Nodes: left records 0..nl, right records nl..nl + nr; each root keeps its least
+        // node name.
+        let mut parent: Vec<u32> = (0..(nl + nr) as u32).collect();
+        let mut least: Vec<i64> = vec![i64::MAX; nl + nr];
+        for i in 0..left.len() {
+            least[left[i] as usize] = 2 * lrow[i];
+            least[nl + right[i] as usize] = 2 * rrow[i] + 1;
+        }
+        fn find(parent: &mut [u32], mut x: u32) -> u32 {
+            while parent[x as usize] != x {
+                let p = parent[x as usize];
+                parent[x as usize] = parent[p as usize];
+                x = p;
+            }
+            x
+        }
+        for i in 0..left.len() {
+            let a = find(&mut parent, left[i]);
+            let b = find(&mut parent, (nl as u32) + right[i]);
+            if a != b {
+                let (keep, gone) = if least[a as usize] <= least[b as usize] {
+                    (a, b)
+                } else {
+                    (b, a)
+                };
+                parent[gone as usize] = keep;
+            }
+        }
+        Ok((0..left.len())
+            .map(|i| {
+                let r = find(&mut parent, left[i]);
+                least[r as usize]
+            })
+            .collect())
+    })?;
+    stream(vec![("component", Arc::new(Int64Array::from(label)))])
+}

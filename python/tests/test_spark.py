@@ -256,6 +256,25 @@ def union_find_components(pairs) -> set:
     return {frozenset(g) for g in groups.values()}
 
 
+def test_union_find_in_one_task_gives_the_graphs_components():
+    pairs = spark.local_candidate_pairs(text_frame(SAMPLE_LEFT), text_frame(SAMPLE_RIGHT), sample_dict())
+    lid, rid = pairs.column("left_id").to_pylist(), pairs.column("right_id").to_pylist()
+    # Row numbers: any increasing numbering of each table's records.
+    lrow = {x: i for i, x in enumerate(sorted(set(lid)))}
+    rrow = {x: i for i, x in enumerate(sorted(set(rid)))}
+    t = pa.table({"lrow": pa.array([lrow[x] for x in lid], pa.int64()),
+                  "rrow": pa.array([rrow[x] for x in rid], pa.int64())})
+    label = pa.table(_dovetail.union_find_components(t)).column("component").to_pylist()
+    groups: dict = {}
+    for a, b, c in zip(lid, rid, label):
+        groups.setdefault(c, set()).add((a, b))
+    assert {frozenset(g) for g in groups.values()} == union_find_components(list(zip(lid, rid)))
+    assert len(groups) > 100
+    # Each label is the least node of its component (left row r as 2r, right as 2r + 1).
+    for c, g in groups.items():
+        assert c == min(min(2 * lrow[a] for a, _ in g), min(2 * rrow[b] + 1 for _, b in g))
+
+
 def test_spark_components_are_the_graphs_components(session):
     left_df, right_df = sample_frames(session, 3, 2)
     cfg = sample_dict()
@@ -345,7 +364,7 @@ def test_the_spark_job_writes_the_linkage(session, tmp_path):
 # and the refinement's BP judges its stopping rule per partition).
 
 
-def local_and_spark(session, cfg, partitions: int):
+def local_and_spark(session, cfg, partitions: int, one_task_pairs: int = 50_000_000):
     """The sample tables linked by Spark, read in file order in several partitions (small
     file splits), and by one machine. In file order each record's row number follows the
     file, as one machine numbers them, so two pairs of exactly equal weight competing for a
@@ -358,7 +377,9 @@ def local_and_spark(session, cfg, partitions: int):
         left_df, right_df = read.csv(str(SAMPLE_LEFT)), read.csv(str(SAMPLE_RIGHT))
         assert left_df.rdd.getNumPartitions() > 1 and right_df.rdd.getNumPartitions() > 1
         # The row numbers are fixed (checkpointed) inside, while the setting holds.
-        got = spark.link_spark(left_df, right_df, cfg, partitions=partitions)
+        got = spark.link_spark(
+            left_df, right_df, cfg, partitions=partitions, one_task_pairs=one_task_pairs
+        )
     finally:
         session.conf.unset("spark.sql.files.maxPartitionBytes")
     want = dovetail.link(text_frame(SAMPLE_LEFT), text_frame(SAMPLE_RIGHT), cfg)
@@ -369,10 +390,12 @@ def rows(df, *cols) -> list:
     return [tuple(r[c] for c in cols) for r in df.collect()]
 
 
-@pytest.mark.parametrize("partitions", [1, 4])
-def test_spark_links_equal_the_single_machine_links(session, partitions):
+# One partition with the components by union-find in one task; four with them by label
+# propagation.
+@pytest.mark.parametrize("partitions, one_task_pairs", [(1, 50_000_000), (4, 0)])
+def test_spark_links_equal_the_single_machine_links(session, partitions, one_task_pairs):
     cfg = sample_dict()
-    got, want = local_and_spark(session, cfg, partitions)
+    got, want = local_and_spark(session, cfg, partitions, one_task_pairs)
     w = want.links.to_pydict()
     want_links = {(a, b): c for a, b, c in zip(w["left_id"], w["right_id"], w["confidence"])}
     got_links = {(a, b): c for a, b, c in rows(got.links, "left_id", "right_id", "confidence")}
