@@ -445,6 +445,28 @@ def _round_b(shape: str, round_json: str):
     return run
 
 
+def _round_ab(shape: str, round_json: str, second_json: str):
+    def run(batches: Iterator[pa.RecordBatch]) -> Iterator[pa.RecordBatch]:
+        from dovetail import _dovetail as native
+
+        t = _partition_table(batches)
+        if t is None:
+            return
+        sums_a, sums_b, msg = native.piece_round_ab(shape, round_json, second_json, t)
+        msg = pa.table(msg)
+        t = t.drop_columns(["lm", "rm"])
+        t = t.append_column("lm", msg.column("lm")).append_column("rm", msg.column("rm"))
+        out = t.append_column("sums", pa.nulls(t.num_rows, pa.string()))
+        yield from out.to_batches()
+        # The two steps' sums, marked.
+        for mark, sums in (("a", sums_a), ("b", sums_b)):
+            row = {name: pa.nulls(1, out.schema.field(name).type) for name in out.column_names}
+            row["sums"] = pa.array([mark + sums], pa.string())
+            yield pa.RecordBatch.from_pydict(row, schema=out.schema)
+
+    return run
+
+
 def _finish(shape: str, weighing: str):
     def run(batches: Iterator[pa.RecordBatch]) -> Iterator[pa.RecordBatch]:
         from dovetail import _dovetail as native
@@ -597,6 +619,20 @@ def link_spark(
     has_messages = False
     for _ in range(refiner.rounds()):
         a = refiner.round_a()
+        early = refiner.early_b()
+        if early is not None:
+            # Both steps in one pass (the link prior's log odds are known before the first
+            # step's sums in all but the first round and the first stratified round).
+            out = state.mapInArrow(
+                _round_ab(shape, a, early), f"{_STATE}, {_MESSAGES}, sums string"
+            ).localCheckpoint()
+            marked = [r["sums"] for r in out.where(F.col("sums").isNotNull()).collect()]
+            b = refiner.take_a([m[1:] for m in marked if m[0] == "a"])
+            if json.loads(b) != json.loads(early):
+                raise RuntimeError("the refinement's early second step differs from its own")
+            refiner.take_b([m[1:] for m in marked if m[0] == "b"])
+            state = out.where(F.col("sums").isNull()).drop("sums")
+            continue
         schema_a = f"{_STATE}, {_MESSAGES}, p double, sums string"
         out = state.mapInArrow(_round_a(shape, a, has_messages), schema_a)
         out = out.localCheckpoint()

@@ -531,6 +531,7 @@ fn _dovetail(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_class::<spark_fit::Refiner>()?;
     m.add_function(wrap_pyfunction!(spark_fit::piece_round_a, m)?)?;
     m.add_function(wrap_pyfunction!(spark_fit::piece_round_b, m)?)?;
+    m.add_function(wrap_pyfunction!(spark_fit::piece_round_ab, m)?)?;
     m.add_function(wrap_pyfunction!(spark_fit::piece_finish, m)?)?;
     m.add_function(wrap_pyfunction!(spark_fit::pair_codes, m)?)?;
     m.add_function(wrap_pyfunction!(spark_fit::union_find_components, m)?)?;

@@ -176,6 +176,12 @@ impl Refiner {
         to_json(&self.inner.round_a())
     }
 
+    /// The round's second step as JSON when it is known before the first step's sums (see
+    /// `Refinement::early_b`; then [`piece_round_ab`] makes both in one pass), else None.
+    fn early_b(&self) -> PyResult<Option<String>> {
+        self.inner.early_b().map(|b| to_json(&b)).transpose()
+    }
+
     /// The laws refitted from the partitions' first-step sums (JSON each, added in the order
     /// given); returns the second step, as JSON.
     fn take_a(&mut self, sums: Vec<String>) -> PyResult<String> {
@@ -421,6 +427,43 @@ pub fn piece_round_b(
     })?;
     Ok((
         to_json(&sums)?,
+        stream(vec![
+            ("lm", Arc::new(Float64Array::from(lm))),
+            ("rm", Arc::new(Float64Array::from(rm))),
+        ])?,
+    ))
+}
+
+/// Both steps of a round on one partition's pairs, when the driver knows the second before
+/// the first's sums (`Refiner.early_b`): the pairs carry the last round's `lm` and `rm`;
+/// returns (the first step's sums, the second's, a table of the new `lm` and `rm`).
+#[pyfunction]
+#[pyo3(signature = (shape_json, round_json, second_json, pairs))]
+pub fn piece_round_ab(
+    py: Python<'_>,
+    shape_json: &str,
+    round_json: &str,
+    second_json: &str,
+    pairs: &Bound<'_, PyAny>,
+) -> PyResult<(String, String, frames::Stream)> {
+    let (shape, round, batches) = piece_input::<RoundA>(py, shape_json, round_json, pairs)?;
+    let second: RoundB = from_json(second_json, "second step")?;
+    let (sa, sb, lm, rm) = py.detach(move || -> PyResult<_> {
+        let pairs = read_pairs(&batches, &shape)?;
+        let piece = pairs.piece();
+        let mut theta = vec![0.0; piece.len()];
+        piece.thetas_into(&round.weighing, &mut theta);
+        let (p, sa) = piece.round_a(&shape.shape, &round, &theta);
+        drop(theta);
+        let mut prior = piece.link_prior();
+        prior.set_messages_by_pair(&f64s(&batches, "lm")?, &f64s(&batches, "rm")?);
+        let sb = piece.round_b(&mut prior, &second, &p);
+        let (lm, rm) = prior.messages_by_pair(piece.len());
+        Ok((sa, sb, lm, rm))
+    })?;
+    Ok((
+        to_json(&WireSumsA::from_sums(sa))?,
+        to_json(&sb)?,
         stream(vec![
             ("lm", Arc::new(Float64Array::from(lm))),
             ("rm", Arc::new(Float64Array::from(rm))),

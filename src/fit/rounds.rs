@@ -172,7 +172,7 @@ fn add_into(a: &mut Vec<f64>, b: &[f64]) {
 }
 
 /// The second step of a round (the link prior's), for every piece.
-#[derive(Debug, Clone, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct RoundB {
     /// The round (from 0): the prior's BP starts from fresh messages in round 0 only.
     pub round: usize,
@@ -422,6 +422,24 @@ impl Refinement {
             strata_sums: stratified,
             strata: self.shape.masks.len(),
         }
+    }
+
+    /// The round's second step, when it is known before the first step's sums: in every
+    /// round whose first step leaves the link prior's log odds as they are (all but the first
+    /// round and the first stratified round, which start them). A distributed run then makes
+    /// both steps in one pass over its pieces.
+    pub fn early_b(&self) -> Option<RoundB> {
+        let stratified = self.stratified();
+        let groups = if stratified {
+            self.shape.masks.len()
+        } else {
+            1
+        };
+        (!self.link_log_odds.is_empty() && self.link_log_odds.len() == groups).then(|| RoundB {
+            round: self.round,
+            link_log_odds: self.link_log_odds.clone(),
+            by_stratum: stratified,
+        })
     }
 
     /// The laws refitted from the pieces' summed first-step sums; returns the round's second
