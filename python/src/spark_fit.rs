@@ -97,6 +97,8 @@ pub struct Refiner {
     codes: Vec<u64>,
     plain: Fit,
     config: dovetail::config::Config,
+    n_left: usize,
+    n_right: usize,
 }
 
 #[pymethods]
@@ -148,6 +150,8 @@ impl Refiner {
                 codes,
                 plain,
                 config,
+                n_left,
+                n_right,
             })
         })
         .map_err(errors::to_py)
@@ -231,14 +235,20 @@ impl Refiner {
 
     /// The laws as JSON: `fit` (the refined pooled laws), `plain_fit` (EM's), `strata` (the
     /// pass masks and laws of each set of passes, when refitted), `link_log_odds`,
-    /// `pooled_link_log_odds`, and `identified` (false when the classes cannot be told apart:
-    /// no link is then reported).
+    /// `pooled_link_log_odds`, `identified` (false when the classes cannot be told apart:
+    /// no link is then reported) with `problems` (why), `fields` (each field's Bhattacharyya
+    /// coefficient and nats of separation) and `separation` (B, d, the margin sqrt(d)·B and
+    /// the nats it needs: the figures the verdict weighs besides the forecast).
     fn laws(&self) -> PyResult<String> {
         let r = &self.inner;
         let names: Vec<String> = self.config.field.iter().map(|f| f.name.clone()).collect();
         let split = vec![None; names.len()];
         let seps = dovetail::reliability::separation::field_separations(&r.fit, &names, &split);
-        let identified = dovetail::reliability::identification_problems(&r.fit, &seps).is_empty();
+        let problems = dovetail::reliability::identification_problems(&r.fit, &seps);
+        let identified = problems.is_empty();
+        let n_pairs = r.pairs() as usize;
+        let separation =
+            dovetail::reliability::separation(&r.fit, &seps, self.n_left, self.n_right, n_pairs);
         let strata = r.strata.as_ref().map(|s| {
             s.masks
                 .iter()
@@ -253,6 +263,9 @@ impl Refiner {
             "link_log_odds": r.link_log_odds,
             "pooled_link_log_odds": r.pooled_link_log_odds,
             "identified": identified,
+            "problems": problems,
+            "fields": seps,
+            "separation": separation,
         }))
     }
 }

@@ -423,6 +423,17 @@ def test_spark_links_equal_the_single_machine_links(session, partitions, one_tas
         zip(r["left_id"], r["right_id"])
     )
     assert got.summary["links"] == len(want_links)
+    # The separation figures the verdict weighs (besides the forecast): the same to 1e-9.
+    sep, local = got.summary["laws"]["separation"], want.summary
+    for key, local_key in (
+        ("bhattacharyya", "bhattacharyya"),
+        ("mean_false_degree", "mean_false_degree"),
+        ("margin", "margin"),
+        ("nats_needed", "separation_needed_nats"),
+        ("nats_supplied", "separation_supplied_nats"),
+    ):
+        assert abs(sep[key] - local[local_key]) <= 1e-9 * max(1.0, abs(local[local_key])), key
+    assert got.summary["laws"]["identified"] and got.summary["laws"]["problems"] == []
 
 
 def test_spark_links_with_a_target_precision(session):

@@ -373,6 +373,11 @@ impl Refinement {
         }
     }
 
+    /// Candidate pairs (the sum of the pattern counts).
+    pub fn pairs(&self) -> f64 {
+        self.counts.counts.iter().sum()
+    }
+
     /// Rounds in all.
     pub fn rounds(&self) -> usize {
         ONE_TO_ONE_ROUNDS

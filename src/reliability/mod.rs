@@ -195,23 +195,76 @@ pub struct AssessInput<'a> {
     pub forecast: Option<Forecast>,
 }
 
-/// Combines separation, degree and forecast into the verdict.
-pub fn assess(fit: &Fit, input: AssessInput<'_>, rule: &VerdictRule) -> Assessment {
-    let b: f64 = input.fields.iter().map(|f| f.bhattacharyya).product();
-    let supplied: f64 = input.fields.iter().map(|f| f.nats).sum();
-    let true_pairs = fit.p * input.n_pairs as f64;
-    let false_pairs = (input.n_pairs as f64 - true_pairs).max(0.0);
-    let scale = ((input.n_left as f64) * (input.n_right as f64)).sqrt();
+/// The separation figures of a fit: what the verdict weighs besides the forecast. They need
+/// only the laws and the counts of records and pairs (a distributed run's driver has them).
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct Separation {
+    /// B = prod_k B_k.
+    pub bhattacharyya: f64,
+    /// sum_k -ln B_k.
+    pub nats_supplied: f64,
+    /// (1/2) ln d (see [`Assessment::nats_needed`]).
+    pub nats_needed: f64,
+    /// p |C|.
+    pub estimated_true_pairs: f64,
+    /// |C| - p |C|.
+    pub false_pairs: f64,
+    /// d = |F| / sqrt(|L| |R|).
+    pub mean_false_degree: f64,
+    /// sqrt(d) B.
+    pub margin: f64,
+}
+
+/// The separation figures of `fit` and its fields for tables of `n_left` and `n_right`
+/// records and `n_pairs` candidate pairs.
+pub fn separation(
+    fit: &Fit,
+    fields: &[FieldSeparation],
+    n_left: usize,
+    n_right: usize,
+    n_pairs: usize,
+) -> Separation {
+    let b: f64 = fields.iter().map(|f| f.bhattacharyya).product();
+    let supplied: f64 = fields.iter().map(|f| f.nats).sum();
+    let true_pairs = fit.p * n_pairs as f64;
+    let false_pairs = (n_pairs as f64 - true_pairs).max(0.0);
+    let scale = ((n_left as f64) * (n_right as f64)).sqrt();
     let d = if scale > 0.0 {
         false_pairs / scale
     } else {
         0.0
     };
-    let margin = d.sqrt() * b;
     // The threshold sqrt(d) B <= 1 in nats: -ln B >= (1/2) ln d. Below d = 1 the right side
     // is negative, so any fields meet it (B <= 1); the true value is kept (minus infinity at
     // d = 0) and the report says what it means.
-    let needed = 0.5 * d.ln();
+    Separation {
+        bhattacharyya: b,
+        nats_supplied: supplied,
+        nats_needed: 0.5 * d.ln(),
+        estimated_true_pairs: true_pairs,
+        false_pairs,
+        mean_false_degree: d,
+        margin: d.sqrt() * b,
+    }
+}
+
+/// Combines separation, degree and forecast into the verdict.
+pub fn assess(fit: &Fit, input: AssessInput<'_>, rule: &VerdictRule) -> Assessment {
+    let Separation {
+        bhattacharyya: b,
+        nats_supplied: supplied,
+        nats_needed: needed,
+        estimated_true_pairs: true_pairs,
+        false_pairs,
+        mean_false_degree: d,
+        margin,
+    } = separation(
+        fit,
+        &input.fields,
+        input.n_left,
+        input.n_right,
+        input.n_pairs,
+    );
     let mut reasons = identification_problems(fit, &input.fields);
     let forecast_rate = input.forecast.as_ref().map(|f| f.error_rate);
     let verdict = if !reasons.is_empty() {
