@@ -1,26 +1,24 @@
 """dovetail on Apache Spark: the stages mapped onto Spark, each piece done by the library.
 
-Work in progress (issue 22). What is here is the blocking stage:
+:func:`link_spark` runs the linkage (issue 22): blocking by joins on the library's keys,
+comparison per partition of pairs, the fit on the driver from the pattern counts, then the
+fit's one-to-one refinement, the confidences and the matching on partitions that hold whole
+connected components. Its links are a single-machine run's. The building blocks:
 
 * :func:`blocking_keys` - one table's key text per record and blocking pass, computed on the
   executors by the library's own transforms (``mapInArrow``), so they equal the keys of a
   single-machine run;
 * :func:`candidate_pairs` - the candidate pairs as Spark joins on those keys, each pass's
   blocks over its ``max_block_pairs`` cap dropped as on one machine, the passes' pairs united
-  with the mask of the passes that found each (bit p for pass p).
+  with the mask of the passes that found each (bit p for pass p);
+* :func:`pattern_counts` - the candidate pairs compared on the executors, as agreement-pattern
+  counts summed by Spark: the sufficient statistic of the fit;
+* :func:`fit_counts` - the fit's first step (EM) on the driver from those counts alone;
+* :func:`components` / :func:`node_components` - connected components by label propagation
+  with shortcuts.
 
-* :func:`pattern_counts` - the candidate pairs compared on the executors (each pair joined
-  with both records' needed columns, levels by the library's comparators), as
-  agreement-pattern counts summed by Spark: the sufficient statistic of the fit.
-
-* :func:`fit_counts` - the fit's first step (EM) on the driver from those counts alone,
-  the same laws as a single-machine run's first fit.
-
-* :func:`components` - the connected components of the pair graph, by label propagation,
-  for the per-component stages.
-
-The one-to-one refinement of the fit, the confidences and the matching per connected
-component come next; see DEVELOPERS.md ("The Python package").
+Not on Spark yet: the verdict, the forecast, the blocking-loss estimate, duplicates within a
+table and the model check (see DEVELOPERS.md, "The Python package").
 
 The executors need the ``dovetail`` package and pyarrow installed in the Python that Spark
 runs (``spark.pyspark.python`` / ``PYSPARK_PYTHON``). The config is sent to them as text, so
