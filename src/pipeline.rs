@@ -979,7 +979,40 @@ fn false_degrees(prep: &Prepared) -> (Vec<f64>, Vec<f64>) {
     (l, r)
 }
 
-fn verdict_rule(cfg: &Config) -> VerdictRule {
+/// The run's forecast of the mismatch rate of the matching `chosen` (pair indices into
+/// `left` / `right`, pairs in the run's order): the bootstrap bracketed by the refined laws
+/// `fit` and plain EM's `plain_fit`, with the config's replicates and seed, at the prior the
+/// run links with (`pooled_link_log_odds`). A distributed run calls it with the same pairs in
+/// the same order.
+#[allow(clippy::too_many_arguments)]
+pub fn run_forecast(
+    config: &Config,
+    n_left: usize,
+    left: &[u32],
+    right: &[u32],
+    chosen: &[usize],
+    fit: &Fit,
+    plain_fit: &Fit,
+    pooled_link_log_odds: Option<f64>,
+) -> Option<forecast::Forecast> {
+    forecast::bracketed(
+        n_left,
+        left,
+        right,
+        chosen,
+        fit,
+        plain_fit,
+        &ForecastOptions {
+            replicates: config.assess.replicates,
+            seed: config.assess.seed,
+            max_pairs: FORECAST_PAIRS,
+            prior_shift: pooled_link_log_odds.map_or(0.0, |l| l - fit.prior_log_odds()),
+        },
+    )
+}
+
+/// The config's verdict thresholds.
+pub fn verdict_rule(cfg: &Config) -> VerdictRule {
     VerdictRule {
         feasible_margin: cfg.assess.feasible_margin,
         infeasible_margin: cfg.assess.infeasible_margin,
@@ -1000,21 +1033,15 @@ fn match_and_assess(
         matching::max_weight_matching(n_left, &prep.cands.left, &prep.cands.right, &prep.theta);
     clock.lap("matching", &mut prep.timings);
     begin(progress, "assessing")?;
-    let fc = forecast::bracketed(
+    let fc = run_forecast(
+        &prep.config,
         n_left,
         &prep.cands.left,
         &prep.cands.right,
         &matching.chosen,
         &prep.fit,
         &prep.plain_fit,
-        &ForecastOptions {
-            replicates: prep.config.assess.replicates,
-            seed: prep.config.assess.seed,
-            max_pairs: FORECAST_PAIRS,
-            prior_shift: prep
-                .pooled_link_log_odds
-                .map_or(0.0, |l| l - prep.fit.prior_log_odds()),
-        },
+        prep.pooled_link_log_odds,
     );
     let (ld, rd) = false_degrees(prep);
     let assessment = reliability::assess(

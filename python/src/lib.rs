@@ -535,6 +535,7 @@ fn _dovetail(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(spark_fit::piece_finish, m)?)?;
     m.add_function(wrap_pyfunction!(spark_fit::pair_codes, m)?)?;
     m.add_function(wrap_pyfunction!(spark_fit::union_find_components, m)?)?;
+    m.add_function(wrap_pyfunction!(spark_fit::forecast_pairs, m)?)?;
     m.add("__version__", env!("CARGO_PKG_VERSION"))?;
     Ok(())
 }

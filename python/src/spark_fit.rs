@@ -211,6 +211,55 @@ impl Refiner {
         to_json(self.inner.weighing())
     }
 
+    /// What [`forecast_pairs`] needs, as JSON: the refined and the plain laws, the pooled
+    /// prior log odds, the config (its replicates and seed).
+    #[pyo3(signature = (config_json))]
+    fn forecast_input(&self, config_json: &str) -> PyResult<String> {
+        to_json(&ForecastInput {
+            fit: self.inner.fit.clone(),
+            plain: self.plain.clone(),
+            pooled_link_log_odds: self.inner.pooled_link_log_odds,
+            config_json: config_json.to_string(),
+        })
+    }
+
+    /// The verdict as JSON (`verdict`, `reasons`, `forecast`) from the separation figures,
+    /// the identification problems and the forecast of [`forecast_pairs`] (JSON, or None when
+    /// none was made). The model check and duplicates within a table, which can make a
+    /// feasible verdict borderline on one machine, are not on Spark yet.
+    fn verdict(&self, forecast_json: Option<&str>) -> PyResult<String> {
+        let forecast: Option<dovetail::reliability::forecast::Forecast> = match forecast_json {
+            Some(f) => from_json::<Option<_>>(f, "forecast")?,
+            None => None,
+        };
+        let r = &self.inner;
+        let names: Vec<String> = self.config.field.iter().map(|f| f.name.clone()).collect();
+        let seps = dovetail::reliability::separation::field_separations(
+            &r.fit,
+            &names,
+            &vec![None; names.len()],
+        );
+        let sep = dovetail::reliability::separation(
+            &r.fit,
+            &seps,
+            self.n_left,
+            self.n_right,
+            r.pairs() as usize,
+        );
+        let problems = dovetail::reliability::identification_problems(&r.fit, &seps);
+        let (verdict, reasons) = dovetail::reliability::verdict_of(
+            &sep,
+            problems,
+            forecast.as_ref().map(|f| f.error_rate),
+            &pipeline::verdict_rule(&self.config),
+        );
+        to_json(&serde_json::json!({
+            "verdict": verdict,
+            "reasons": reasons,
+            "forecast": forecast,
+        }))
+    }
+
     /// The link rule of the config: (`min_confidence`, `target_precision` or None, the
     /// review band's low and high ends).
     fn link_rule(&self) -> (f64, Option<f64>, f64, f64) {
@@ -268,6 +317,59 @@ impl Refiner {
             "separation": separation,
         }))
     }
+}
+
+/// What the forecast's task needs besides the pairs.
+#[derive(Serialize, Deserialize)]
+struct ForecastInput {
+    fit: Fit,
+    plain: Fit,
+    pooled_link_log_odds: Option<f64>,
+    config_json: String,
+}
+
+/// The forecast of the mismatch rate over the whole pair graph in one task, as one machine
+/// makes it (`pipeline::run_forecast`): `pairs` holds every candidate pair's `lrow`, `rrow`
+/// and `chosen` (in the matching), sorted by (`lrow`, `rrow`). Returns the forecast as JSON
+/// (`null` when none can be made).
+#[pyfunction]
+#[pyo3(signature = (input_json, pairs))]
+pub fn forecast_pairs(
+    py: Python<'_>,
+    input_json: &str,
+    pairs: &Bound<'_, PyAny>,
+) -> PyResult<String> {
+    let input: ForecastInput = from_json(input_json, "forecast input")?;
+    let placeholder = Some(frames::Source::Path(PathBuf::new()));
+    let config = config_for(None, Some(&input.config_json), &placeholder, &placeholder)
+        .map_err(errors::to_py)?;
+    let batches = batches(py, pairs)?;
+    let forecast = py.detach(move || -> PyResult<_> {
+        let (n_left, left) = local(&i64s(&batches, "lrow")?);
+        let (_, right) = local(&i64s(&batches, "rrow")?);
+        let mut chosen = Vec::new();
+        let mut i = 0usize;
+        for b in &batches {
+            let c = column::<BooleanArray>(b, "chosen")?;
+            for k in 0..c.len() {
+                if c.value(k) {
+                    chosen.push(i);
+                }
+                i += 1;
+            }
+        }
+        Ok(pipeline::run_forecast(
+            &config,
+            n_left,
+            &left,
+            &right,
+            &chosen,
+            &input.fit,
+            &input.plain,
+            input.pooled_link_log_odds,
+        ))
+    })?;
+    to_json(&forecast)
 }
 
 /// One partition's pairs, read from the Arrow table `pairs`.

@@ -434,6 +434,15 @@ def test_spark_links_equal_the_single_machine_links(session, partitions, one_tas
     ):
         assert abs(sep[key] - local[local_key]) <= 1e-9 * max(1.0, abs(local[local_key])), key
     assert got.summary["laws"]["identified"] and got.summary["laws"]["problems"] == []
+    # The forecast (the bootstrap over the whole graph, in one task) and the verdict.
+    if one_task_pairs == 0:
+        # Nothing may go to one task: no forecast, and the summary says so.
+        assert got.summary["forecast"] is None and "forecast" in got.summary["not_on_spark"]
+        return
+    assert abs(got.summary["forecast"]["error_rate"] - local["forecast_error_rate"]) < 1e-9
+    assert got.summary["forecast"]["interval"] == pytest.approx(local["forecast_interval"], abs=1e-9)
+    assert got.summary["verdict"] == local["verdict"] == "feasible"
+    assert got.summary["verdict_reasons"] == local["verdict_reasons"]
 
 
 def test_spark_links_with_a_target_precision(session):

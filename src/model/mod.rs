@@ -23,7 +23,7 @@ pub mod check;
 pub const FLOOR: f64 = 1e-6;
 
 /// The fitted laws.
-#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+#[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
 pub struct Fit {
     /// Share of candidate pairs that are true pairs.
     pub p: f64,

@@ -54,7 +54,7 @@ pub struct ForecastOptions {
 }
 
 /// The forecast.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, serde::Deserialize)]
 pub struct Forecast {
     /// Mean share of planted pairs not recovered.
     pub error_rate: f64,

@@ -250,23 +250,47 @@ pub fn separation(
 
 /// Combines separation, degree and forecast into the verdict.
 pub fn assess(fit: &Fit, input: AssessInput<'_>, rule: &VerdictRule) -> Assessment {
-    let Separation {
-        bhattacharyya: b,
-        nats_supplied: supplied,
-        nats_needed: needed,
-        estimated_true_pairs: true_pairs,
-        false_pairs,
-        mean_false_degree: d,
-        margin,
-    } = separation(
+    let sep = separation(
         fit,
         &input.fields,
         input.n_left,
         input.n_right,
         input.n_pairs,
     );
-    let mut reasons = identification_problems(fit, &input.fields);
     let forecast_rate = input.forecast.as_ref().map(|f| f.error_rate);
+    let (verdict, reasons) = verdict_of(
+        &sep,
+        identification_problems(fit, &input.fields),
+        forecast_rate,
+        rule,
+    );
+    Assessment {
+        fields: input.fields,
+        bhattacharyya: sep.bhattacharyya,
+        nats_supplied: sep.nats_supplied,
+        nats_needed: sep.nats_needed,
+        estimated_true_pairs: sep.estimated_true_pairs,
+        false_pairs: sep.false_pairs,
+        mean_false_degree: sep.mean_false_degree,
+        false_degree: degree_stats(input.left_false_degree, input.right_false_degree),
+        margin: sep.margin,
+        forecast: input.forecast,
+        verdict,
+        reasons,
+    }
+}
+
+/// The verdict from the separation figures, the reasons the fit cannot be trusted
+/// (`problems`: [`identification_problems`]) and the forecast mismatch rate, with the
+/// reasons in plain words.
+pub fn verdict_of(
+    sep: &Separation,
+    problems: Vec<String>,
+    forecast_rate: Option<f64>,
+    rule: &VerdictRule,
+) -> (Verdict, Vec<String>) {
+    let (margin, supplied, needed) = (sep.margin, sep.nats_supplied, sep.nats_needed);
+    let mut reasons = problems;
     let verdict = if !reasons.is_empty() {
         Verdict::Infeasible
     } else if margin >= rule.infeasible_margin
@@ -306,18 +330,5 @@ pub fn assess(fit: &Fit, input: AssessInput<'_>, rule: &VerdictRule) -> Assessme
         ));
         Verdict::Borderline
     };
-    Assessment {
-        fields: input.fields,
-        bhattacharyya: b,
-        nats_supplied: supplied,
-        nats_needed: needed,
-        estimated_true_pairs: true_pairs,
-        false_pairs,
-        mean_false_degree: d,
-        false_degree: degree_stats(input.left_false_degree, input.right_false_degree),
-        margin,
-        forecast: input.forecast,
-        verdict,
-        reasons,
-    }
+    (verdict, reasons)
 }
