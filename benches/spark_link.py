@@ -148,6 +148,10 @@ def main() -> None:
           + ", ".join(f"{k} {v:.1f} s" for k, v in timings.items()))
     print(f"same links: {same} (only Spark {len(set(got) - set(want))}, only CLI "
           f"{len(set(want) - set(got))}); largest confidence difference {worst:.2e}")
+    cli_summary = json.loads((work / "cli" / "summary.json").read_text())
+    fc = res.summary["forecast"]
+    print(f"verdict: Spark {res.summary['verdict']}, CLI {cli_summary['verdict']}; forecast: "
+          f"Spark {fc['error_rate'] if fc else None}, CLI {cli_summary['forecast_error_rate']}")
     print(f"driver (Python) peak RSS {py_peak:.0f} MiB ({py_start:.0f} MiB once Spark had started); "
           f"driver JVM peak {jvm_peak[0] / 2**20:.0f} MiB (in local mode it holds the executors "
           f"too); executor JVMs and Python workers peak {rest_peak[0] / 2**20:.0f} MiB")
