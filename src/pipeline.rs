@@ -529,19 +529,23 @@ fn pair_comparison(
     Ok(compare::compare(&records, &cands))
 }
 
-/// The number of agreement levels of each of the config's fields.
-pub fn field_levels(config: &Config) -> Result<Vec<usize>> {
+/// The config's comparators over no records: their levels and pattern codes, which depend
+/// only on the config (a distributed run's driver has no records).
+fn config_comparison(config: &Config) -> Result<compare::Comparison> {
     let empty = empty_table();
     let records = records::build(&empty, &empty, &config.field, &config.key_columns)?;
-    Ok(compare::compare(&records, &Candidates::default()).level_counts())
+    Ok(compare::compare(&records, &Candidates::default()))
+}
+
+/// The number of agreement levels of each of the config's fields.
+pub fn field_levels(config: &Config) -> Result<Vec<usize>> {
+    Ok(config_comparison(config)?.level_counts())
 }
 
 /// The levels of each field of each pattern code of the config's fields (an error names a
 /// code that does not fit them).
 pub fn code_levels(config: &Config, codes: &[u64]) -> Result<Vec<Vec<u8>>> {
-    let empty = empty_table();
-    let records = records::build(&empty, &empty, &config.field, &config.key_columns)?;
-    let comparison = compare::compare(&records, &Candidates::default());
+    let comparison = config_comparison(config)?;
     codes
         .iter()
         .map(|&code| {
@@ -575,9 +579,7 @@ pub fn fit_from_counts(
             "`model.labelled`, `model.u_from = \"random\"` and `link.decisions` need the records, not only the pattern counts; they are not available here yet",
         ));
     }
-    let empty = empty_table();
-    let records = records::build(&empty, &empty, &config.field, &config.key_columns)?;
-    let comparison = compare::compare(&records, &Candidates::default());
+    let comparison = config_comparison(config)?;
     let levels = comparison.level_counts();
     for (p, _) in &patterns {
         let bad = p.len() != levels.len()

@@ -187,6 +187,15 @@ def _split_sides(batch: pa.RecordBatch, lcols: List[str], rcols: List[str]):
     return lt, rt, lrows, rrows
 
 
+def _with_records(pairs: "DataFrame", left: "DataFrame", right: "DataFrame", lcols, rcols):
+    """Each pair joined with both records' needed columns (prefixed ``l__`` and ``r__``)."""
+    from pyspark.sql import functions as F
+
+    return pairs.join(left, F.col("left_id") == F.col("l__" + lcols[0])).join(
+        right, F.col("right_id") == F.col("r__" + rcols[0])
+    )
+
+
 def pattern_counts(
     left_df: "DataFrame", right_df: "DataFrame", pairs_df: "DataFrame", config: Any
 ) -> "DataFrame":
@@ -202,11 +211,7 @@ def pattern_counts(
     lcols, rcols = _dovetail.read_columns(None, cj)
     left = left_df.select([F.col(c).cast("string").alias("l__" + c) for c in lcols])
     right = right_df.select([F.col(c).cast("string").alias("r__" + c) for c in rcols])
-    joined = (
-        pairs_df.select("left_id", "right_id")
-        .join(left, F.col("left_id") == F.col("l__" + lcols[0]))
-        .join(right, F.col("right_id") == F.col("r__" + rcols[0]))
-    )
+    joined = _with_records(pairs_df.select("left_id", "right_id"), left, right, lcols, rcols)
 
     def run(batches: Iterator[pa.RecordBatch]) -> Iterator[pa.RecordBatch]:
         from dovetail import _dovetail as native
@@ -357,14 +362,8 @@ agreement-pattern code."""
 
 
 def _compare(left: "DataFrame", right: "DataFrame", pairs_df: "DataFrame", cj: str) -> "DataFrame":
-    from pyspark.sql import functions as F
-
     lcols, rcols = _dovetail.read_columns(None, cj)
-    joined = (
-        pairs_df.select("left_id", "right_id", "passes")
-        .join(left, F.col("left_id") == F.col("l__" + lcols[0]))
-        .join(right, F.col("right_id") == F.col("r__" + rcols[0]))
-    )
+    joined = _with_records(pairs_df.select("left_id", "right_id", "passes"), left, right, lcols, rcols)
 
     def run(batches: Iterator[pa.RecordBatch]) -> Iterator[pa.RecordBatch]:
         from dovetail import _dovetail as native
@@ -399,13 +398,14 @@ def _partition_table(batches: Iterator[pa.RecordBatch]) -> "pa.Table | None":
     return pa.Table.from_batches(batches) if batches else None
 
 
-def _with_sums(table: pa.Table, sums: str) -> Iterator[pa.RecordBatch]:
-    """A partition's pairs, then one row holding its sums (its pair columns null)."""
+def _with_sums(table: pa.Table, *sums: str) -> Iterator[pa.RecordBatch]:
+    """A partition's pairs, then a row holding each of its sums (its pair columns null)."""
     out = table.append_column("sums", pa.nulls(table.num_rows, pa.string()))
     yield from out.to_batches()
-    row = {name: pa.nulls(1, out.schema.field(name).type) for name in out.column_names}
-    row["sums"] = pa.array([sums], pa.string())
-    yield pa.RecordBatch.from_pydict(row, schema=out.schema)
+    for one in sums:
+        row = {name: pa.nulls(1, out.schema.field(name).type) for name in out.column_names}
+        row["sums"] = pa.array([one], pa.string())
+        yield pa.RecordBatch.from_pydict(row, schema=out.schema)
 
 
 def _round_a(shape: str, round_json: str, has_messages: bool):
@@ -454,13 +454,8 @@ def _round_ab(shape: str, round_json: str, second_json: str):
         msg = pa.table(msg)
         t = t.drop_columns(["lm", "rm"])
         t = t.append_column("lm", msg.column("lm")).append_column("rm", msg.column("rm"))
-        out = t.append_column("sums", pa.nulls(t.num_rows, pa.string()))
-        yield from out.to_batches()
         # The two steps' sums, marked.
-        for mark, sums in (("a", sums_a), ("b", sums_b)):
-            row = {name: pa.nulls(1, out.schema.field(name).type) for name in out.column_names}
-            row["sums"] = pa.array([mark + sums], pa.string())
-            yield pa.RecordBatch.from_pydict(row, schema=out.schema)
+        yield from _with_sums(t, "a" + sums_a, "b" + sums_b)
 
     return run
 

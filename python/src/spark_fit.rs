@@ -233,12 +233,7 @@ impl Refiner {
             None => None,
         };
         let r = &self.inner;
-        let names: Vec<String> = self.config.field.iter().map(|f| f.name.clone()).collect();
-        let seps = dovetail::reliability::separation::field_separations(
-            &r.fit,
-            &names,
-            &vec![None; names.len()],
-        );
+        let seps = self.field_separations();
         let sep = dovetail::reliability::separation(
             &r.fit,
             &seps,
@@ -290,9 +285,7 @@ impl Refiner {
     /// the nats it needs: the figures the verdict weighs besides the forecast).
     fn laws(&self) -> PyResult<String> {
         let r = &self.inner;
-        let names: Vec<String> = self.config.field.iter().map(|f| f.name.clone()).collect();
-        let split = vec![None; names.len()];
-        let seps = dovetail::reliability::separation::field_separations(&r.fit, &names, &split);
+        let seps = self.field_separations();
         let problems = dovetail::reliability::identification_problems(&r.fit, &seps);
         let identified = problems.is_empty();
         let n_pairs = r.pairs() as usize;
@@ -370,6 +363,15 @@ pub fn forecast_pairs(
         ))
     })?;
     to_json(&forecast)
+}
+
+impl Refiner {
+    /// Each field's separation under the refined laws (no value-frequency fields on Spark).
+    fn field_separations(&self) -> Vec<dovetail::reliability::separation::FieldSeparation> {
+        let names: Vec<String> = self.config.field.iter().map(|f| f.name.clone()).collect();
+        let split = vec![None; names.len()];
+        dovetail::reliability::separation::field_separations(&self.inner.fit, &names, &split)
+    }
 }
 
 /// One partition's pairs, read from the Arrow table `pairs`.
@@ -491,6 +493,37 @@ fn stream(columns: Vec<(&str, ArrayRef)>) -> PyResult<frames::Stream> {
     Ok(frames::Stream::new(batch))
 }
 
+/// The first step of a round on a piece: its pairs' link probabilities and its sums.
+fn first_step(piece: &Piece<'_>, shape: &Shape, round: &RoundA) -> (Vec<f64>, SumsA) {
+    let mut theta = vec![0.0; piece.len()];
+    piece.thetas_into(&round.weighing, &mut theta);
+    piece.round_a(shape, round, &theta)
+}
+
+/// The link prior's step on a piece whose pairs carry, after round 0, the last round's
+/// messages `lm` and `rm`: its sums and the new messages.
+fn prior_step(
+    batches: &[RecordBatch],
+    piece: &Piece<'_>,
+    round: &RoundB,
+    p: &[f64],
+) -> PyResult<(SumsB, Vec<f64>, Vec<f64>)> {
+    let mut prior = piece.link_prior();
+    if round.round > 0 {
+        prior.set_messages_by_pair(&f64s(batches, "lm")?, &f64s(batches, "rm")?);
+    }
+    let sums = piece.round_b(&mut prior, round, p);
+    let (lm, rm) = prior.messages_by_pair(piece.len());
+    Ok((sums, lm, rm))
+}
+
+fn messages(lm: Vec<f64>, rm: Vec<f64>) -> PyResult<frames::Stream> {
+    stream(vec![
+        ("lm", Arc::new(Float64Array::from(lm))),
+        ("rm", Arc::new(Float64Array::from(rm))),
+    ])
+}
+
 /// The first step of a round on one partition's pairs: (its sums as JSON, a table of `p`,
 /// each pair's rough one-to-one link probability, in the pairs' order).
 #[pyfunction]
@@ -504,10 +537,7 @@ pub fn piece_round_a(
     let (shape, round, batches) = piece_input::<RoundA>(py, shape_json, round_json, pairs)?;
     let (sums, p) = py.detach(move || -> PyResult<(SumsA, Vec<f64>)> {
         let pairs = read_pairs(&batches, &shape)?;
-        let piece = pairs.piece();
-        let mut theta = vec![0.0; piece.len()];
-        piece.thetas_into(&round.weighing, &mut theta);
-        let (p, sums) = piece.round_a(&shape.shape, &round, &theta);
+        let (p, sums) = first_step(&pairs.piece(), &shape.shape, &round);
         Ok((sums, p))
     })?;
     Ok((
@@ -531,22 +561,9 @@ pub fn piece_round_b(
     let (sums, lm, rm) = py.detach(move || -> PyResult<(SumsB, Vec<f64>, Vec<f64>)> {
         let pairs = read_pairs(&batches, &shape)?;
         let p = f64s(&batches, "p")?;
-        let piece = pairs.piece();
-        let mut prior = piece.link_prior();
-        if round.round > 0 {
-            prior.set_messages_by_pair(&f64s(&batches, "lm")?, &f64s(&batches, "rm")?);
-        }
-        let sums = piece.round_b(&mut prior, &round, &p);
-        let (lm, rm) = prior.messages_by_pair(piece.len());
-        Ok((sums, lm, rm))
+        prior_step(&batches, &pairs.piece(), &round, &p)
     })?;
-    Ok((
-        to_json(&sums)?,
-        stream(vec![
-            ("lm", Arc::new(Float64Array::from(lm))),
-            ("rm", Arc::new(Float64Array::from(rm))),
-        ])?,
-    ))
+    Ok((to_json(&sums)?, messages(lm, rm)?))
 }
 
 /// Both steps of a round on one partition's pairs, when the driver knows the second before
@@ -566,23 +583,14 @@ pub fn piece_round_ab(
     let (sa, sb, lm, rm) = py.detach(move || -> PyResult<_> {
         let pairs = read_pairs(&batches, &shape)?;
         let piece = pairs.piece();
-        let mut theta = vec![0.0; piece.len()];
-        piece.thetas_into(&round.weighing, &mut theta);
-        let (p, sa) = piece.round_a(&shape.shape, &round, &theta);
-        drop(theta);
-        let mut prior = piece.link_prior();
-        prior.set_messages_by_pair(&f64s(&batches, "lm")?, &f64s(&batches, "rm")?);
-        let sb = piece.round_b(&mut prior, &second, &p);
-        let (lm, rm) = prior.messages_by_pair(piece.len());
+        let (p, sa) = first_step(&piece, &shape.shape, &round);
+        let (sb, lm, rm) = prior_step(&batches, &piece, &second, &p)?;
         Ok((sa, sb, lm, rm))
     })?;
     Ok((
         to_json(&WireSumsA::from_sums(sa))?,
         to_json(&sb)?,
-        stream(vec![
-            ("lm", Arc::new(Float64Array::from(lm))),
-            ("rm", Arc::new(Float64Array::from(rm))),
-        ])?,
+        messages(lm, rm)?,
     ))
 }
 
@@ -607,9 +615,8 @@ pub fn piece_finish(
         let weight: Vec<f64> = (0..n)
             .map(|i| weighing.weight(piece.pattern[i], piece.stratum(i)))
             .collect();
-        let theta: Vec<f64> = (0..n)
-            .map(|i| weighing.theta(piece.stratum(i), weight[i]))
-            .collect();
+        let mut theta = vec![0.0; n];
+        piece.thetas_into(&weighing, &mut theta);
         let m =
             dovetail::matching::max_weight_matching(piece.n_left, piece.left, piece.right, &theta);
         let mut chosen = vec![false; n];
